@@ -1,0 +1,41 @@
+//! The crate's top-level error: one variant per stage, each wrapping that stage's typed error.
+
+use thiserror::Error;
+
+/// Any error isosbestic's library can return. Match on the stage, then on the stage's variant.
+#[derive(Debug, Error)]
+#[non_exhaustive]
+pub enum Error {
+    /// The spectra set failed validation.
+    #[error(transparent)]
+    SpectraSet(#[from] crate::data::SpectraSetError),
+    /// A CSV table could not be read or written.
+    #[error(transparent)]
+    Csv(#[from] crate::data::csv_io::CsvError),
+    /// A JCAMP-DX file could not be read or written.
+    #[error(transparent)]
+    Jcamp(#[from] crate::data::jcamp::JcampError),
+    /// A preprocessing step failed.
+    #[error(transparent)]
+    Preprocess(#[from] crate::preprocess::PreprocessError),
+    /// Factor analysis failed.
+    #[error(transparent)]
+    Factor(#[from] crate::factor::FactorError),
+    /// The equilibrium model or speciation failed.
+    #[error(transparent)]
+    Speciation(#[from] crate::speciation::SpeciationError),
+    /// Thermodynamic fitting or a solvent/activity correction failed.
+    #[error(transparent)]
+    Thermo(#[from] crate::thermo::ThermoError),
+    /// Writing an output failed.
+    #[error("cannot write {path}: {source}")]
+    Output {
+        /// The file being written.
+        path: std::path::PathBuf,
+        /// The I/O error.
+        source: std::io::Error,
+    },
+}
+
+/// `Result` with the crate's [`Error`].
+pub type Result<T, E = Error> = std::result::Result<T, E>;
