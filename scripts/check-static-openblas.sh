@@ -8,7 +8,7 @@ if readelf -d "$bin" | grep -E "NEEDED.*(openblas|libblas|liblapack)"; then
   echo "check-static-openblas: FAIL: $bin depends on a shared BLAS/LAPACK library" >&2
   exit 1
 fi
-if ! nm "$bin" | grep -qE " T openblas_get_num_threads$"; then
+if ! nm "$bin" | grep -E " T openblas_get_num_threads$" >/dev/null; then
   echo "check-static-openblas: FAIL: no OpenBLAS/LAPACK symbols inside $bin" >&2
   exit 1
 fi
