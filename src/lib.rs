@@ -36,6 +36,7 @@ pub mod preprocess;
 pub mod report;
 pub mod resolve;
 pub mod speciation;
+pub mod stats;
 #[doc(hidden)]
 pub mod testing;
 pub mod thermo;
