@@ -1,2 +1,4 @@
-//! Resolution of D = C·Sᵀ: linear least squares and NNLS, soft resolution (MCR-ALS), the global
-//! model fit and the classic two-wavelength estimates. Not written yet (see the issues).
+//! Resolution of D = diag(b)·C·Sᵀ: linear least squares and NNLS. Soft resolution (MCR-ALS) and
+//! the global model fit are being written (see the issues).
+
+pub mod linear;
