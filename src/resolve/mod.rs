@@ -2,3 +2,4 @@
 //! the global model fit are being written (see the issues).
 
 pub mod linear;
+pub mod lm;

@@ -1,0 +1,406 @@
+//! Levenberg–Marquardt for nonlinear least squares, as an argmin [`Solver`].
+//!
+//! Minimises ½‖r(θ)‖² for a problem that implements argmin's [`Operator`] (θ ↦ r) and
+//! [`Jacobian`] (θ ↦ J = ∂r/∂θ). Each iteration solves the damped normal equations
+//!
+//! ```text
+//! (JᵀJ + λ·diag(JᵀJ)) δ = −Jᵀr
+//! ```
+//!
+//! as the equivalent, better-conditioned least-squares problem ‖[J; √λ·D] δ + [r; 0]‖ → min with
+//! D = diag(JᵀJ)^½ (Marquardt's scaling; Moré, "The Levenberg–Marquardt algorithm:
+//! implementation and theory", Lecture Notes in Mathematics 630 (1978) 105). Steps are accepted
+//! when the gain ratio ρ = actual / predicted reduction is positive; λ is updated by Nielsen's
+//! rule (λ ← λ·max(⅓, 1 − (2ρ − 1)³) on success, λ ← λ·ν, ν ← 2ν on failure). Bounds are
+//! honoured by projecting each trial point onto the box.
+//!
+//! Termination is reported as a [`LmTermination`]: which convergence test fired, the iteration
+//! limit, or a stall (no decrease possible). The final state is returned in every case.
+
+use argmin::core::IterState;
+use argmin::core::{
+    Error as ArgminError, Executor, Jacobian, KV, Operator, Problem, Solver, State, TerminationReason,
+    TerminationStatus,
+};
+use ndarray::{Array1, Array2, Axis, concatenate};
+use ndarray_linalg::LeastSquaresSvd;
+use serde::{Deserialize, Serialize};
+
+/// The state type the solver runs on: parameters θ, Jacobian J and residuals r as ndarray
+/// arrays, cost ½‖r‖².
+pub type LmState = IterState<Array1<f64>, (), Array2<f64>, (), Array1<f64>, f64>;
+
+/// Which convergence test ended the fit.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
+#[serde(rename_all = "snake_case")]
+pub enum ConvergenceTest {
+    /// The relative decrease of the cost in an accepted step fell below `cost_tolerance`.
+    CostReduction,
+    /// The step fell below `step_tolerance` relative to the parameters.
+    StepSize,
+    /// The gradient ‖Jᵀr‖∞ fell below `gradient_tolerance` (scaled by the cost).
+    Gradient,
+}
+
+/// Why the solver stopped.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
+#[serde(rename_all = "snake_case", tag = "reason", content = "test")]
+pub enum LmTermination {
+    /// Converged by the named test.
+    Converged(ConvergenceTest),
+    /// Reached the iteration limit before converging.
+    IterationLimit,
+    /// No step reduced the cost even with very strong damping.
+    Stalled,
+    /// Still running (never returned by a finished run).
+    Running,
+}
+
+impl LmTermination {
+    /// True for [`LmTermination::Converged`].
+    pub fn converged(self) -> bool {
+        matches!(self, Self::Converged(_))
+    }
+}
+
+/// Settings of the Levenberg–Marquardt solver.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[serde(default, deny_unknown_fields)]
+pub struct LmParams {
+    /// Maximum iterations (accepted or rejected steps count once each).
+    pub max_iterations: u64,
+    /// Relative cost decrease below which an accepted step means convergence.
+    pub cost_tolerance: f64,
+    /// Relative step size below which the fit has converged.
+    pub step_tolerance: f64,
+    /// Scaled gradient below which the fit has converged.
+    pub gradient_tolerance: f64,
+    /// Initial damping λ₀.
+    pub initial_damping: f64,
+    /// Lower bounds for θ (empty: none).
+    pub lower: Vec<f64>,
+    /// Upper bounds for θ (empty: none).
+    pub upper: Vec<f64>,
+}
+
+impl Default for LmParams {
+    fn default() -> Self {
+        Self {
+            max_iterations: 200,
+            cost_tolerance: 1e-14,
+            step_tolerance: 1e-10,
+            gradient_tolerance: 1e-12,
+            initial_damping: 1e-3,
+            lower: Vec::new(),
+            upper: Vec::new(),
+        }
+    }
+}
+
+/// The Levenberg–Marquardt solver.
+#[derive(Debug, Clone)]
+pub struct LevenbergMarquardt {
+    params: LmParams,
+    damping: f64,
+    nu: f64,
+    termination: LmTermination,
+}
+
+impl LevenbergMarquardt {
+    /// A solver with the given settings.
+    pub fn new(params: LmParams) -> Self {
+        Self {
+            damping: params.initial_damping,
+            params,
+            nu: 2.0,
+            termination: LmTermination::Running,
+        }
+    }
+
+    /// Why the solver stopped (after a run).
+    pub fn termination(&self) -> LmTermination {
+        self.termination
+    }
+
+    fn project(&self, x: &mut Array1<f64>) {
+        for (i, v) in x.iter_mut().enumerate() {
+            if let Some(&lo) = self.params.lower.get(i) {
+                *v = v.max(lo);
+            }
+            if let Some(&hi) = self.params.upper.get(i) {
+                *v = v.min(hi);
+            }
+        }
+    }
+}
+
+fn half_norm2(r: &Array1<f64>) -> f64 {
+    0.5 * r.dot(r)
+}
+
+fn finite_residuals(r: &Array1<f64>) -> bool {
+    r.iter().all(|v| v.is_finite())
+}
+
+impl<O> Solver<O, LmState> for LevenbergMarquardt
+where
+    O: Operator<Param = Array1<f64>, Output = Array1<f64>>
+        + Jacobian<Param = Array1<f64>, Jacobian = Array2<f64>>,
+{
+    fn name(&self) -> &str {
+        "Levenberg-Marquardt"
+    }
+
+    fn init(
+        &mut self,
+        problem: &mut Problem<O>,
+        mut state: LmState,
+    ) -> Result<(LmState, Option<KV>), ArgminError> {
+        let mut x = state.take_param().ok_or_else(argmin::argmin_error_closure!(
+            NotInitialized,
+            "initial parameters are required"
+        ))?;
+        self.project(&mut x);
+        let r = problem.apply(&x)?;
+        let j = problem.jacobian(&x)?;
+        let cost = half_norm2(&r);
+        Ok((state.param(x).residuals(r).jacobian(j).cost(cost), None))
+    }
+
+    fn next_iter(
+        &mut self,
+        problem: &mut Problem<O>,
+        mut state: LmState,
+    ) -> Result<(LmState, Option<KV>), ArgminError> {
+        let x = state
+            .take_param()
+            .ok_or_else(argmin::argmin_error_closure!(NotInitialized, "no parameters"))?;
+        let r = state
+            .take_residuals()
+            .ok_or_else(argmin::argmin_error_closure!(NotInitialized, "no residuals"))?;
+        let j = state
+            .take_jacobian()
+            .ok_or_else(argmin::argmin_error_closure!(NotInitialized, "no Jacobian"))?;
+        let cost = state.get_cost();
+        let g = j.t().dot(&r);
+        let gnorm = g.iter().fold(0.0f64, |m, v| m.max(v.abs()));
+        if gnorm <= self.params.gradient_tolerance * (2.0 * cost).sqrt().max(f64::MIN_POSITIVE)
+            || gnorm == 0.0
+        {
+            self.termination = LmTermination::Converged(ConvergenceTest::Gradient);
+            return Ok((state.param(x).residuals(r).jacobian(j).cost(cost), None));
+        }
+        // Marquardt scaling, kept away from zero for columns that vanish.
+        let mut diag: Array1<f64> = j.map_axis(Axis(0), |c| c.dot(&c).sqrt());
+        let dmax = diag.iter().fold(0.0f64, |m, v| m.max(*v));
+        diag.mapv_inplace(|d| d.max(1e-12 * dmax.max(f64::MIN_POSITIVE)));
+        let n = x.len();
+        for _ in 0..60 {
+            let sl = self.damping.sqrt();
+            let damp = Array2::from_diag(&(&diag * sl));
+            let a = concatenate(Axis(0), &[j.view(), damp.view()])
+                .map_err(|e| -> ArgminError { argmin::argmin_error!(PotentialBug, e.to_string()) })?;
+            let mut b = Array1::zeros(r.len() + n);
+            b.slice_mut(ndarray::s![..r.len()]).assign(&(-&r));
+            let step = match a.least_squares(&b) {
+                Ok(sol) if sol.solution.iter().all(|v| v.is_finite()) => sol.solution,
+                _ => {
+                    self.damping *= self.nu;
+                    self.nu *= 2.0;
+                    continue;
+                }
+            };
+            let mut trial = &x + &step;
+            self.project(&mut trial);
+            let step = &trial - &x;
+            let xnorm = x.dot(&x).sqrt();
+            let snorm = step.dot(&step).sqrt();
+            if snorm <= self.params.step_tolerance * (xnorm + self.params.step_tolerance) {
+                self.termination = LmTermination::Converged(ConvergenceTest::StepSize);
+                return Ok((state.param(x).residuals(r).jacobian(j).cost(cost), None));
+            }
+            let r_trial = problem.apply(&trial)?;
+            let cost_trial = if finite_residuals(&r_trial) {
+                half_norm2(&r_trial)
+            } else {
+                f64::INFINITY
+            };
+            // predicted reduction of the linear model: −(gᵀδ + ½‖Jδ‖²)
+            let jd = j.dot(&step);
+            let predicted = -(g.dot(&step) + 0.5 * jd.dot(&jd));
+            let actual = cost - cost_trial;
+            let rho = if predicted > 0.0 { actual / predicted } else { -1.0 };
+            if rho > 1e-4 && actual > 0.0 {
+                self.damping *= (1.0f64 / 3.0).max(1.0 - (2.0 * rho - 1.0).powi(3));
+                self.nu = 2.0;
+                let j_trial = problem.jacobian(&trial)?;
+                if actual <= self.params.cost_tolerance * cost {
+                    self.termination = LmTermination::Converged(ConvergenceTest::CostReduction);
+                }
+                let kv = argmin::kv!("damping" => self.damping; "gain_ratio" => rho;);
+                return Ok((
+                    state
+                        .param(trial)
+                        .residuals(r_trial)
+                        .jacobian(j_trial)
+                        .cost(cost_trial),
+                    Some(kv),
+                ));
+            }
+            self.damping *= self.nu;
+            self.nu *= 2.0;
+            if self.damping > 1e20 {
+                break;
+            }
+        }
+        self.termination = LmTermination::Stalled;
+        Ok((state.param(x).residuals(r).jacobian(j).cost(cost), None))
+    }
+
+    fn terminate(&mut self, _state: &LmState) -> TerminationStatus {
+        match self.termination {
+            LmTermination::Converged(_) => TerminationStatus::Terminated(TerminationReason::SolverConverged),
+            LmTermination::Stalled => {
+                TerminationStatus::Terminated(TerminationReason::SolverExit("stalled".into()))
+            }
+            _ => TerminationStatus::NotTerminated,
+        }
+    }
+}
+
+/// The outcome of a Levenberg–Marquardt run: the last state, always, and why it stopped.
+#[derive(Debug, Clone)]
+pub struct LmOutcome {
+    /// Final parameters θ.
+    pub param: Array1<f64>,
+    /// Final residuals r(θ).
+    pub residuals: Array1<f64>,
+    /// Jacobian at θ.
+    pub jacobian: Array2<f64>,
+    /// Final cost ½‖r‖².
+    pub cost: f64,
+    /// Iterations run.
+    pub iterations: u64,
+    /// Why it stopped.
+    pub termination: LmTermination,
+}
+
+/// Runs Levenberg–Marquardt on `problem` from `start`.
+///
+/// # Errors
+/// Whatever the problem's `apply`/`jacobian` return (e.g. a speciation failure), wrapped by
+/// argmin.
+///
+/// # Examples
+/// Fitting y = a·exp(−k·t) to exact data recovers a and k:
+/// ```
+/// use argmin::core::{Error, Jacobian, Operator};
+/// use isosbestic::resolve::lm::{minimise, LmParams};
+/// use ndarray::{array, Array1, Array2};
+/// struct Decay { t: Array1<f64>, y: Array1<f64> }
+/// impl Operator for Decay {
+///     type Param = Array1<f64>;
+///     type Output = Array1<f64>;
+///     fn apply(&self, p: &Array1<f64>) -> Result<Array1<f64>, Error> {
+///         Ok(self.t.mapv(|t| p[0] * (-p[1] * t).exp()) - &self.y)
+///     }
+/// }
+/// impl Jacobian for Decay {
+///     type Param = Array1<f64>;
+///     type Jacobian = Array2<f64>;
+///     fn jacobian(&self, p: &Array1<f64>) -> Result<Array2<f64>, Error> {
+///         Ok(Array2::from_shape_fn((self.t.len(), 2), |(i, k)| {
+///             let e = (-p[1] * self.t[i]).exp();
+///             if k == 0 { e } else { -p[0] * self.t[i] * e }
+///         }))
+///     }
+/// }
+/// let t = Array1::linspace(0.0, 4.0, 20);
+/// let y = t.mapv(|t: f64| 2.5 * (-0.7 * t).exp());
+/// let out = minimise(Decay { t, y }, array![1.0, 0.1], LmParams::default())?;
+/// assert!(out.termination.converged());
+/// approx::assert_relative_eq!(out.param[0], 2.5, max_relative = 1e-9);
+/// approx::assert_relative_eq!(out.param[1], 0.7, max_relative = 1e-9);
+/// # Ok::<(), argmin::core::Error>(())
+/// ```
+pub fn minimise<O>(problem: O, start: Array1<f64>, params: LmParams) -> Result<LmOutcome, ArgminError>
+where
+    O: Operator<Param = Array1<f64>, Output = Array1<f64>>
+        + Jacobian<Param = Array1<f64>, Jacobian = Array2<f64>>,
+{
+    let max_iter = params.max_iterations;
+    let solver = LevenbergMarquardt::new(params);
+    let result = Executor::new(problem, solver)
+        .configure(|s| s.param(start).max_iters(max_iter))
+        .timer(false)
+        .run()?;
+    let mut termination = result.solver().termination();
+    let mut state = result.state().clone();
+    if termination == LmTermination::Running {
+        termination = LmTermination::IterationLimit;
+    }
+    let iterations = state.get_iter();
+    let cost = state.get_cost();
+    Ok(LmOutcome {
+        param: state.take_param().unwrap_or_default(),
+        residuals: state.take_residuals().unwrap_or_default(),
+        jacobian: state.take_jacobian().unwrap_or_else(|| Array2::zeros((0, 0))),
+        cost,
+        iterations,
+        termination,
+    })
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    /// Rosenbrock's function as residuals r = (10(y − x²), 1 − x): minimum at (1, 1).
+    struct Rosenbrock;
+    impl Operator for Rosenbrock {
+        type Param = Array1<f64>;
+        type Output = Array1<f64>;
+        fn apply(&self, p: &Array1<f64>) -> Result<Array1<f64>, ArgminError> {
+            Ok(ndarray::array![10.0 * (p[1] - p[0] * p[0]), 1.0 - p[0]])
+        }
+    }
+    impl Jacobian for Rosenbrock {
+        type Param = Array1<f64>;
+        type Jacobian = Array2<f64>;
+        fn jacobian(&self, p: &Array1<f64>) -> Result<Array2<f64>, ArgminError> {
+            Ok(ndarray::array![[-20.0 * p[0], 10.0], [-1.0, 0.0]])
+        }
+    }
+
+    #[test]
+    fn rosenbrock_residuals_converge_to_the_known_minimum() {
+        // Known minimum (1, 1): Rosenbrock, Comput. J. 3 (1960) 175.
+        let out = minimise(Rosenbrock, ndarray::array![-1.2, 1.0], LmParams::default()).unwrap();
+        assert!(out.termination.converged(), "{:?}", out.termination);
+        approx::assert_abs_diff_eq!(out.param[0], 1.0, epsilon = 1e-8);
+        approx::assert_abs_diff_eq!(out.param[1], 1.0, epsilon = 1e-8);
+    }
+
+    #[test]
+    fn bounds_hold_the_solution_on_the_box() {
+        let params = LmParams {
+            upper: vec![0.5, f64::INFINITY],
+            ..LmParams::default()
+        };
+        let out = minimise(Rosenbrock, ndarray::array![-1.2, 1.0], params).unwrap();
+        assert!(out.param[0] <= 0.5);
+        approx::assert_abs_diff_eq!(out.param[0], 0.5, epsilon = 1e-6);
+    }
+
+    #[test]
+    fn an_iteration_limit_is_reported_with_the_last_state() {
+        let params = LmParams {
+            max_iterations: 2,
+            ..LmParams::default()
+        };
+        let out = minimise(Rosenbrock, ndarray::array![-1.2, 1.0], params).unwrap();
+        assert_eq!(out.termination, LmTermination::IterationLimit);
+        assert_eq!(out.param.len(), 2);
+        assert!(out.cost.is_finite());
+    }
+}
