@@ -37,5 +37,5 @@ pub enum Error {
     },
 }
 
-/// `Result` with the crate's [`Error`].
+/// `Result` with the crate's [`enum@Error`].
 pub type Result<T, E = Error> = std::result::Result<T, E>;
