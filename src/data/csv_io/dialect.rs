@@ -46,7 +46,8 @@ pub(crate) fn column_number(index: usize) -> u64 {
 /// Splits `text` into header and data rows.
 ///
 /// A leading UTF-8 byte-order mark is dropped; blank lines and lines starting with `#` before
-/// the header are skipped; rows whose cells are all blank are skipped anywhere. The delimiter is
+/// the header are skipped; rows whose cells are all blank are skipped anywhere; a last column
+/// that is empty on every line (a delimiter ending each line) is dropped. The delimiter is
 /// the one of `,` `;` tab that splits the header into the most fields (at least two) while
 /// splitting the next few rows into as many; failing consistency, the one giving the most
 /// header fields (the row that disagrees is then reported as ragged by the caller).
@@ -114,16 +115,28 @@ pub(crate) fn split_table(text: &str, source: Option<&Path>) -> Result<RawTable,
         }
     }
     let mut rows = rows.into_iter();
-    let Some(header) = rows.next() else {
+    let Some(mut header) = rows.next() else {
         return Err(CsvError::Empty {
             location: at(source).at_line(header_line),
             what: "no header line",
         });
     };
-    Ok(RawTable {
-        header,
-        data: rows.collect(),
-    })
+    let mut data: Vec<Row> = rows.collect();
+    drop_trailing_empty_column(&mut header, &mut data);
+    Ok(RawTable { header, data })
+}
+
+/// Drops a last column that is empty in the header and in every row: the trace of a delimiter
+/// written at the end of every line, as some spreadsheet and instrument exports do.
+fn drop_trailing_empty_column(header: &mut Row, data: &mut [Row]) {
+    let n = header.fields.len();
+    let empty_last = |r: &Row| r.fields.len() == n && r.fields.last().is_some_and(String::is_empty);
+    if n > 2 && empty_last(header) && data.iter().all(empty_last) {
+        header.fields.pop();
+        for r in data.iter_mut() {
+            r.fields.pop();
+        }
+    }
 }
 
 /// The 1-based line number and byte offset of the first line that is neither blank nor a
@@ -296,6 +309,16 @@ mod tests {
         assert_eq!(t.header.fields, vec!["a", "b"]);
         let lines: Vec<u64> = t.data.iter().map(|r| r.line).collect();
         assert_eq!(lines, vec![5, 7]);
+    }
+
+    #[test]
+    fn a_delimiter_ending_every_line_is_ignored() {
+        let t = split_table("wl,a,b,\n400,1,2,\n410,3,4,\n", None).unwrap();
+        assert_eq!(t.header.fields, vec!["wl", "a", "b"]);
+        assert!(t.data.iter().all(|r| r.fields.len() == 3));
+        // but not when a row has something there
+        let t = split_table("wl,a,b,\n400,1,2,\n410,3,4,5\n", None).unwrap();
+        assert_eq!(t.header.fields.len(), 4);
     }
 
     #[test]

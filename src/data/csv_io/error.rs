@@ -130,8 +130,8 @@ pub enum CsvError {
     },
     /// A temperature column whose header does not state the unit.
     #[error(
-        "{location}: column '{column}' does not state its temperature unit; name it \
-         {expected_k} (kelvin) or {expected_c} (degrees Celsius)"
+        "{location}: column '{column}' does not state its temperature unit as expected; the unit \
+         is part of the name, exactly {expected_k} (kelvin) or {expected_c} (degrees Celsius)"
     )]
     MissingTemperatureUnit {
         /// File, header line and column.

@@ -28,7 +28,8 @@
 //! Columns separated by `,`, `;` or a tab, detected from the header and the rows after it; `.`
 //! is the only decimal mark (a file with decimal commas is refused with
 //! [`CsvError::DecimalComma`]); cells are trimmed; double quotes may enclose cells; a UTF-8
-//! byte-order mark, blank lines and `#` comment lines before the header are allowed.
+//! byte-order mark, blank lines, `#` comment lines before the header, and a delimiter ending
+//! every line (an empty last column) are allowed.
 //!
 //! Errors are [`CsvError`]s naming file, line and column. The matching writers are in
 //! [`crate::report::tables`].
