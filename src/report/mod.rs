@@ -2,3 +2,4 @@
 //! atomically (temporary file, then rename).
 
 pub mod atomic;
+pub mod tables;
