@@ -15,6 +15,10 @@
 use super::JcampError;
 use crate::data::Location;
 
+/// Most points one data record may expand to (DUP counts could otherwise ask for any amount
+/// of memory).
+pub(crate) const MAX_POINTS: u64 = 10_000_000;
+
 /// One number of an ASDF line.
 #[derive(Debug, Clone, Copy, PartialEq)]
 pub(crate) enum Token {
@@ -288,10 +292,9 @@ pub(crate) fn decode_xydata(lines: &[DataLine<'_>]) -> Result<Decoded, JcampErro
                         });
                     };
                     // The DUP count includes the original; cap what user data can ask for.
-                    if n > 10_000_000 {
-                        return Err(JcampError::BadNumber {
-                            text: format!("DUP {n}"),
-                            reason: "repeat count is implausibly large".into(),
+                    if n > MAX_POINTS || y.len() as u64 + n > MAX_POINTS {
+                        return Err(JcampError::TooManyPoints {
+                            limit: MAX_POINTS,
                             location: location(),
                         });
                     }

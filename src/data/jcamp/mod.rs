@@ -191,6 +191,15 @@ pub enum JcampError {
         /// The data line.
         location: Location,
     },
+    /// More points than this reader accepts in one file (a guard against DUP counts or
+    /// inputs that would exhaust memory).
+    #[error("{location}: more than {limit} points")]
+    TooManyPoints {
+        /// The limit.
+        limit: u64,
+        /// Where it was exceeded.
+        location: Location,
+    },
     /// No data at all: no spectrum block, or a data record without points.
     #[error("{location}: no spectral data ({detail})")]
     EmptyData {
@@ -287,6 +296,7 @@ impl JcampError {
             | Self::DuplicateWavelength { location, .. }
             | Self::XMismatch { location, .. }
             | Self::EmptyData { location, .. }
+            | Self::TooManyPoints { location, .. }
             | Self::UnknownSample { location, .. }
             | Self::DuplicateSpectrum { location, .. }
             | Self::Resample { location, .. } => Some(location),

@@ -1,7 +1,7 @@
 //! Splitting a JCAMP-DX text into labelled data records and blocks, decoding the data records
 //! and converting units to wavelength (nm) and absorbance.
 
-use super::asdf::{DataLine, decode_xydata};
+use super::asdf::{DataLine, MAX_POINTS, decode_xydata};
 use super::{JcampError, JcampSpectrum};
 use crate::data::Location;
 use std::collections::BTreeMap;
@@ -134,6 +134,7 @@ pub fn parse_jcamp(text: &str, source: Option<&Path>) -> Result<Vec<JcampSpectru
     let (ldrs, last_line) = split_ldrs(text);
     let mut stack: Vec<Block<'_>> = Vec::new();
     let mut spectra = Vec::new();
+    let mut total_points: u64 = 0;
     for ldr in ldrs {
         match ldr.key.as_str() {
             "TITLE" => stack.push(Block {
@@ -145,6 +146,13 @@ pub fn parse_jcamp(text: &str, source: Option<&Path>) -> Result<Vec<JcampSpectru
                 if let Some(block) = stack.pop()
                     && let Some(s) = block_to_spectrum(&block, &at)?
                 {
+                    total_points += s.wavelengths_nm.len() as u64;
+                    if total_points > MAX_POINTS {
+                        return Err(JcampError::TooManyPoints {
+                            limit: MAX_POINTS,
+                            location: at(ldr.line),
+                        });
+                    }
                     spectra.push(s);
                 }
             }
