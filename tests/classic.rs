@@ -268,3 +268,38 @@ fn a_sample_with_a_non_positive_concentration_is_reported_and_left_out_of_the_fi
     assert_eq!(vh.used.len(), 7);
     assert_relative_eq!(vh.fit.delta_h_j_per_mol.value, DH, max_relative = 1e-8);
 }
+
+proptest::proptest! {
+    #[test]
+    fn with_all_four_absorptivities_known_both_estimates_recover_any_one_to_one_constant(
+        log_k in 1.0..5.0f64,
+        eps_m1 in 1.0..50.0f64,
+        eps_c1 in 0.0..300.0f64,
+        eps_m2 in 0.0..5.0f64,
+        eps_c2 in 100.0..2000.0f64,
+    ) {
+        let k = 10f64.powf(log_k);
+        let c = complex_conc(k, 1);
+        let m = M_TOTAL - c;
+        let eps = TwoWavelengthAbsorptivities {
+            free_at_free_nm: eps_m1,
+            free_at_complex_nm: eps_m2,
+            complex_at_free_nm: eps_c1,
+            complex_at_complex_nm: eps_c2,
+        };
+        let input = ClassicInput {
+            sample_ids: vec!["p".into()],
+            temperatures_k: vec![298.15],
+            path_cm: vec![0.5],
+            absorbance_at_free_nm: vec![0.5 * (eps_m1 * m + eps_c1 * c)],
+            absorbance_at_complex_nm: vec![0.5 * (eps_m2 * m + eps_c2 * c)],
+            metal_total_m: vec![M_TOTAL],
+            ligand_total_m: vec![L_TOTAL],
+        };
+        for method in [ClassicMethod::Direct, ClassicMethod::MassBalance] {
+            let est = classic_estimate(&input, &eps, &params(method, CrossAbsorption::Correct, 1)).unwrap();
+            let got = est.samples[0].k.unwrap();
+            proptest::prop_assert!((got / k - 1.0).abs() < 1e-6, "{method:?}: {got} vs {k}");
+        }
+    }
+}

@@ -21,8 +21,8 @@ use serde::{Deserialize, Serialize};
 
 /// Lowest temperature at which [`kell_water_density_kg_m3`] is used, K (0 °C).
 pub const KELL_MIN_K: f64 = ZERO_CELSIUS_K;
-/// Highest temperature at which [`kell_water_density_kg_m3`] is used, K (100 °C, the normal
-/// boiling point; Kell's fit itself extends to 150 °C at saturation pressure).
+/// Highest temperature at which [`kell_water_density_kg_m3`] is used, K (100 °C: the liquid
+/// range at 0.101325 MPa).
 pub const KELL_MAX_K: f64 = ZERO_CELSIUS_K + 100.0;
 
 /// Density of liquid water at 0.101325 MPa, kg/m³, by Kell (J. Chem. Eng. Data 20 (1975) 97,
@@ -350,6 +350,30 @@ mod tests {
         assert!(
             matches!(e, ThermoError::TemperatureOutsideRange { ref source_name, .. } if source_name.contains("'b'"))
         );
+    }
+
+    #[test]
+    fn a_five_degree_table_of_kell_values_interpolates_kell_closely() {
+        // Self-consistency of the table route. Bound: piecewise-linear interpolation errs by at
+        // most h²·max|ρ''|/8 = 25 · 0.0183 / 8 ≈ 0.057 kg/m³ (ρ'' of Kell's equation is largest,
+        // −0.0183 kg m⁻³ K⁻², at 0 °C; numerical second difference); the monotone cubic must
+        // stay inside that everywhere and within 0.01 kg/m³ away from the table ends.
+        let t: Vec<f64> = (0..=20).map(|k| 273.15 + 5.0 * f64::from(k)).collect();
+        let rho = t.iter().map(|&t| kell_water_density_kg_m3(t)).collect();
+        let d = SolventDensity::Table(DensityTable::new("water every 5 °C", t, rho).unwrap());
+        for k in 0..100 {
+            let tk = 273.65 + f64::from(k);
+            let tol = if (283.15..=363.15).contains(&tk) {
+                0.01
+            } else {
+                0.057
+            };
+            assert_abs_diff_eq!(
+                d.density_kg_m3(tk).unwrap(),
+                kell_water_density_kg_m3(tk),
+                epsilon = tol
+            );
+        }
     }
 
     #[test]

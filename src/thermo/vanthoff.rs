@@ -305,6 +305,10 @@ pub struct Estimate {
 }
 
 /// The fit re-expressed at the harmonic-mean temperature.
+///
+/// For equal weights ln K(T_hm) and ΔH° are uncorrelated exactly (T_hm is then the point where
+/// the centred 1/T column is orthogonal to the constant). With unequal σ the decorrelating
+/// temperature is 1/(Σwᵢ/Tᵢ / Σwᵢ) instead, and `correlation` shows how much remains at T_hm.
 #[derive(Debug, Clone, Copy, PartialEq, Serialize, Deserialize)]
 pub struct CentredParameters {
     /// T_hm = n / Σ(1/Tᵢ), K.
@@ -710,6 +714,53 @@ fn correlation_coefficient(cab: f64, caa: f64, cbb: f64, same: bool) -> f64 {
     }
 }
 
+impl std::fmt::Display for VanThoffFit {
+    /// A short human summary: ΔH°, ΔS° (and ΔCp°) with standard errors, the centred
+    /// parametrisation and the fit statistics.
+    fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
+        let h = self.delta_h_j_per_mol;
+        let s = self.delta_s_j_per_k_mol;
+        writeln!(
+            f,
+            "ΔH° = {:.3} ± {:.3} kJ/mol",
+            h.value / 1000.0,
+            h.std_error / 1000.0
+        )?;
+        writeln!(f, "ΔS° = {:.2} ± {:.2} J/(K mol)", s.value, s.std_error)?;
+        if let Some(c) = self.delta_cp_j_per_k_mol {
+            writeln!(f, "ΔCp° = {:.1} ± {:.1} J/(K mol)", c.value, c.std_error)?;
+        }
+        if let Some(c) = self.delta_cp_slope_j_per_k2_mol {
+            writeln!(f, "dΔCp°/dT = {:.3} ± {:.3} J/(K² mol)", c.value, c.std_error)?;
+        }
+        if let Some(theta) = self.heat_capacity.reference_k() {
+            writeln!(f, "(ΔH°, ΔS°, ΔCp° at θ = {theta:.2} K)")?;
+        }
+        let c = &self.centred;
+        writeln!(
+            f,
+            "at T_hm = {:.2} K: ln K = {:.4} ± {:.4}, ΔH° = {:.3} ± {:.3} kJ/mol (correlation {:.3})",
+            c.temperature_k,
+            c.ln_k.value,
+            c.ln_k.std_error,
+            c.delta_h_j_per_mol.value / 1000.0,
+            c.delta_h_j_per_mol.std_error / 1000.0,
+            c.correlation
+        )?;
+        write!(
+            f,
+            "{} points, {} degrees of freedom, χ² = {:.4}, errors {}",
+            self.n_points,
+            self.degrees_of_freedom,
+            self.chi_squared,
+            match self.error_scale {
+                ErrorScale::Known => "from the given uncertainties",
+                ErrorScale::Residual => "from the residual scatter",
+            }
+        )
+    }
+}
+
 fn dot(a: &[f64], b: &[f64]) -> f64 {
     a.iter().zip(b).map(|(x, y)| x * y).sum()
 }
@@ -800,6 +851,19 @@ impl VanThoffFit {
     /// # Errors
     /// [`ThermoError::InvalidParameter`] unless 0 < level < 1;
     /// [`ThermoError::NonPositiveTemperature`] for a bad temperature (naming its index).
+    ///
+    /// # Examples
+    /// ```
+    /// use isosbestic::thermo::{fit_vant_hoff, ConstantScale, KData, VanThoffParams};
+    /// let t = vec![290.0, 300.0, 310.0, 320.0];
+    /// let lnk = vec![2.00, 1.81, 1.59, 1.42];
+    /// let data = KData::new(t, lnk, ConstantScale::Ln).with_sigmas(vec![0.02; 4]);
+    /// let fit = fit_vant_hoff(&data, &VanThoffParams::default().check()?)?;
+    /// let b = fit.band(&[305.0], 0.95)?;
+    /// // known σ: the normal quantile 1.95996 (common practice)
+    /// approx::assert_relative_eq!(b[0].upper - b[0].ln_k, 1.959964 * b[0].std_error, max_relative = 1e-6);
+    /// # Ok::<(), isosbestic::thermo::ThermoError>(())
+    /// ```
     pub fn band(&self, temperatures_k: &[f64], level: f64) -> Result<Vec<BandPoint>, ThermoError> {
         if !(level > 0.0 && level < 1.0) {
             return Err(ThermoError::InvalidParameter {
@@ -990,6 +1054,7 @@ mod tests {
         .unwrap();
         let s = serde_json::to_string(&f).unwrap();
         let g: VanThoffFit = serde_json::from_str(&s).unwrap();
+        assert!(f.to_string().contains("kJ/mol"));
         assert_abs_diff_eq!(
             g.delta_h_j_per_mol.value,
             f.delta_h_j_per_mol.value,
