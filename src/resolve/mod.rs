@@ -1,5 +1,14 @@
-//! Resolution of D = diag(b)·C·Sᵀ: linear least squares and NNLS. Soft resolution (MCR-ALS) and
-//! the global model fit are being written (see the issues).
+//! Resolution of D = diag(b)·C·Sᵀ.
+//!
+//! - [`linear`]: S from C (or C from S) by least squares or fast NNLS, all wavelengths at once.
+//! - [`lm`]: Levenberg–Marquardt as an argmin solver.
+//! - [`classic`]: the textbook two-wavelength route (direct Beer–Lambert and mass-balance
+//!   estimates of a two-absorber equilibrium), kept for comparison with the full-spectrum fits.
+//!
+//! Soft resolution (MCR-ALS) is not written yet (see the issues).
 
+pub mod classic;
 pub mod linear;
 pub mod lm;
+
+pub use classic::ClassicError;
