@@ -12,6 +12,9 @@ pub enum Error {
     /// A CSV table could not be read or written.
     #[error(transparent)]
     Csv(#[from] crate::data::csv_io::CsvError),
+    /// A saved result document could not be read.
+    #[error(transparent)]
+    Document(#[from] crate::report::tables::DocumentError),
     /// A JCAMP-DX file could not be read or written.
     #[error(transparent)]
     Jcamp(#[from] crate::data::jcamp::JcampError),
@@ -27,6 +30,9 @@ pub enum Error {
     /// Thermodynamic fitting or a solvent/activity correction failed.
     #[error(transparent)]
     Thermo(#[from] crate::thermo::ThermoError),
+    /// A classic two-wavelength estimate failed.
+    #[error(transparent)]
+    Classic(#[from] crate::resolve::ClassicError),
     /// Writing an output failed.
     #[error("cannot write {path}: {source}")]
     Output {
