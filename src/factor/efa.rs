@@ -97,11 +97,9 @@ pub fn evolving_factors_of(
     })
 }
 
-/// The numerical zero level of singular values of D: s₁·ε·max(n, m), and the smallest positive
-/// number if D is zero.
-pub(crate) fn zero_level(dec: &Decomposition) -> f64 {
-    let s1 = dec.singular_values().first().copied().unwrap_or(0.0);
-    let level = s1 * f64::EPSILON * dec.n_rows().max(dec.n_cols()) as f64;
+/// [`Decomposition::zero_level`], or the smallest positive number if D is zero.
+fn zero_level(dec: &Decomposition) -> f64 {
+    let level = dec.zero_level();
     if level > 0.0 { level } else { f64::MIN_POSITIVE }
 }
 

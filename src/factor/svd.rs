@@ -71,6 +71,31 @@ impl Decomposition {
         us.dot(&self.vt.slice(ndarray::s![..k, ..]))
     }
 
+    /// The numerical zero level of the singular values, s₁·ε·max(r, c) with ε the machine
+    /// epsilon: values at or below it cannot be told from zero in double precision. This is the
+    /// default tolerance of `numpy.linalg.matrix_rank` (after Press et al., Numerical Recipes,
+    /// 2nd ed., §2.6 — from memory).
+    pub fn zero_level(&self) -> f64 {
+        let s1 = self.singular_values.first().copied().unwrap_or(0.0);
+        s1 * f64::EPSILON * self.n_rows().max(self.n_cols()) as f64
+    }
+
+    /// Numerical rank: the number of singular values above [`Decomposition::zero_level`]. This is
+    /// the rank of D as stored, noise included — the chemical rank is [`crate::factor::estimate_rank`].
+    ///
+    /// # Examples
+    /// ```
+    /// use isosbestic::factor::decompose;
+    /// use ndarray::array;
+    /// let dec = decompose(array![[1.0, 2.0, 3.0], [2.0, 4.0, 6.0], [1.0, 0.0, 1.0]].view())?;
+    /// assert_eq!(dec.numerical_rank(), 2);
+    /// # Ok::<(), isosbestic::factor::FactorError>(())
+    /// ```
+    pub fn numerical_rank(&self) -> usize {
+        let tol = self.zero_level();
+        self.singular_values.iter().filter(|&&s| s > tol).count()
+    }
+
     /// Cumulative fraction of Σλ explained by the first 1, 2, …, p factors (the last is 1).
     /// All zeros for a zero matrix.
     pub fn explained_variance(&self) -> Vec<f64> {
