@@ -164,6 +164,26 @@ fn every_criterion_recovers_the_true_rank_at_high_signal_to_noise() {
 }
 
 #[test]
+fn the_f_test_keeps_every_factor_when_samples_are_barely_more_than_species() {
+    // r ≈ k: testing from k = 1 upwards would pool the real factors 2…k into the noise
+    for &(species, n, m, sigma) in &[
+        (2usize, 5usize, 100usize, 1e-3),
+        (3, 6, 300, 1e-3),
+        (4, 7, 200, 5e-4),
+    ] {
+        for seed in 0..10u64 {
+            let (d, _, _) = synthetic(300 + seed, species, n, m, sigma);
+            let est = estimate_rank(&decompose(d.view()).expect("svd"), 8, 0.05, None).expect("rank");
+            // true rank = number of simulated species (ground truth of the simulation)
+            assert_eq!(
+                est.by_f_test, species,
+                "{species} species, {n}×{m}, seed {seed}: {est:?}"
+            );
+        }
+    }
+}
+
+#[test]
 fn the_noise_estimate_at_the_true_rank_is_within_20_percent_of_sigma() {
     for &(species, n, m, sigma) in &DESIGNS {
         for seed in 0..5u64 {

@@ -294,7 +294,16 @@ impl fmt::Display for FactorSummary {
                 .map_or_else(|| "-".to_string(), |v| format!("{v:.3e}"));
             let (fs, ps) = self.rank.f_test.get(k - 1).map_or_else(
                 || ("-".to_string(), "-".to_string()),
-                |r| (format!("{:.3}", r.f), format!("{:.4}", r.p_value)),
+                |r| {
+                    (
+                        compact(r.f),
+                        if r.p_value < 1e-3 {
+                            format!("{:.1e}", r.p_value)
+                        } else {
+                            format!("{:.4}", r.p_value)
+                        },
+                    )
+                },
             );
             let mark = if k == self.rank.chosen { " <" } else { "" };
             writeln!(f, "{k:>3} {s:>13.6e} {ev:>10.6} {ind:>11} {fs:>10} {ps:>8}{mark}")?;
@@ -328,6 +337,15 @@ impl fmt::Display for FactorSummary {
             )?;
         }
         Ok(())
+    }
+}
+
+/// A number in at most 10 characters: fixed point when moderate, scientific otherwise.
+fn compact(x: f64) -> String {
+    if x.is_finite() && (1e-3..1e5).contains(&x.abs()) {
+        format!("{x:.3}")
+    } else {
+        format!("{x:.3e}")
     }
 }
 

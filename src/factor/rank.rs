@@ -179,7 +179,7 @@ pub struct FTestRow {
 pub struct RankEstimate {
     /// Rank at the minimum of Malinowski's indicator function over k = 1 … k_max.
     pub by_indicator: usize,
-    /// Number of leading factors significant in Malinowski's F-test (0 … k_max).
+    /// Largest k ≤ k_max whose factor is significant in Malinowski's F-test (0 if none).
     pub by_f_test: usize,
     /// Number of singular values above the known-noise edge, when a noise level was given
     /// (capped at k_max).
@@ -197,8 +197,11 @@ pub struct RankEstimate {
 /// Estimates the rank of D from its decomposition.
 ///
 /// k_max = min(`max_rank`, min(r, c) − 1): both criteria need at least one residual factor.
-/// The F-test is applied from k = 1 upwards; the rank is the number of factors before the first
-/// one whose p-value is not below `significance`.
+/// The F-test rank is the largest k ≤ k_max whose factor is significant (p < `significance`),
+/// i.e. the scan runs from k_max downwards and stops at the first significant factor. Every factor
+/// tested before it is then compared with a pool of presumed-noise factors only; scanning from
+/// k = 1 upwards instead would pool real factors with the noise while testing the larger ones, and
+/// with few samples (r ≈ k) then misses factors.
 ///
 /// # Errors
 /// [`FactorError::TooSmallForRank`] when min(r, c) < 3; [`FactorError::InvalidParameter`] for
@@ -252,7 +255,10 @@ pub fn estimate_rank(
         .min_by(|a, b| a.1.total_cmp(b.1))
         .map_or(0, |(i, _)| i + 1);
     let f_test: Vec<FTestRow> = (1..=k_max).filter_map(|k| dec.f_test(k)).collect();
-    let by_f_test = f_test.iter().take_while(|row| row.p_value < significance).count();
+    let by_f_test = f_test
+        .iter()
+        .rposition(|row| row.p_value < significance)
+        .map_or(0, |i| i + 1);
     let by_noise = known_noise.map(|sigma| dec.count_above_noise(sigma).min(k_max));
 
     let mut reasoning = Vec::new();
@@ -260,19 +266,22 @@ pub fn estimate_rank(
         "Malinowski's indicator function IND(k) = RE(k)/(c − k)² is smallest at k = {by_indicator} \
          (searched k = 1…{k_max})."
     ));
-    let f_sentence = match f_test.get(by_f_test) {
-        Some(row) => format!(
-            "Malinowski's F-test at the {:.1} % level finds {by_f_test} significant factor(s); \
-             factor {} is not significant (F = {:.3}, p = {:.3}).",
-            100.0 * significance,
-            row.k,
-            row.f,
-            row.p_value
+    let level = 100.0 * significance;
+    let f_sentence = match (by_f_test, f_test.get(by_f_test)) {
+        (0, _) => format!(
+            "Malinowski's F-test at the {level:.1} % level finds no significant factor among k = 1…{k_max}."
         ),
-        None => format!(
-            "Malinowski's F-test at the {:.1} % level finds all {by_f_test} tested factor(s) \
-             significant (the search stops at k_max = {k_max}).",
-            100.0 * significance
+        (_, Some(next)) => format!(
+            "Malinowski's F-test at the {level:.1} % level: factor {by_f_test} is the last significant one \
+             (p = {:.2e}); factor {} is not (F = {:.3}, p = {:.3}).",
+            f_test[by_f_test - 1].p_value,
+            next.k,
+            next.f,
+            next.p_value
+        ),
+        (_, None) => format!(
+            "Malinowski's F-test at the {level:.1} % level finds factor {by_f_test} significant, the \
+             largest rank searched (k_max = {k_max}); the data may hold more factors."
         ),
     };
     reasoning.push(f_sentence);
