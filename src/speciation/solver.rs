@@ -60,7 +60,7 @@ pub struct Speciation {
     /// Free concentration of each component, mol/L (equal to the first entries of
     /// `concentrations`).
     pub free: Vec<f64>,
-    /// Newton iterations used (plus fallback sweeps, if any).
+    /// Work done: Newton iterations plus start-up and fallback sweeps.
     pub iterations: usize,
     /// Largest relative mass-balance residual max_j |Σᵢ aᵢⱼ cᵢ − T_j| / max(|T_j|, Σᵢ |aᵢⱼ| cᵢ).
     pub residual: f64,
@@ -122,6 +122,7 @@ struct Workspace<'m> {
     l: Vec<f64>,
     d: Vec<f64>,
     rhs: Vec<f64>,
+    order: Vec<usize>,
 }
 
 impl<'m> Workspace<'m> {
@@ -148,6 +149,7 @@ impl<'m> Workspace<'m> {
             l: vec![0.0; nc * nc],
             d: vec![0.0; nc],
             rhs: vec![0.0; nc],
+            order: Vec::with_capacity(nc),
         }
     }
 
@@ -320,10 +322,10 @@ impl<'m> Workspace<'m> {
     }
 
     /// Cold start: uⱼ = ln Tⱼ (or ln 1e-7 M for a signed component with T ≤ 0), then a few
-    /// sweeps of the diagonal log update uⱼ += ln(Tⱼ/Sⱼ)/āⱼ, Sⱼ = Σ aᵢⱼcᵢ,
+    /// sweeps (scarcest component first) of the diagonal log update uⱼ += ln(Tⱼ/Sⱼ)/āⱼ, Sⱼ = Σ aᵢⱼcᵢ,
     /// āⱼ = Σ aᵢⱼ²cᵢ/Sⱼ, on positive components: this removes the huge excesses a strong
     /// complex produces at the start.
-    fn cold_start(&mut self) {
+    fn cold_start(&mut self) -> usize {
         for j in 0..self.nc {
             self.u[j] = if !self.active_c[j] {
                 0.0
@@ -333,9 +335,17 @@ impl<'m> Workspace<'m> {
                 self.totals[j].ln()
             };
         }
+        let mut sweeps = 0;
+        // scarcest component first: its free concentration moves by many decades while an
+        // abundant component stays near its total (the reverse order would wrongly starve it)
+        let mut order = std::mem::take(&mut self.order);
+        order.clear();
+        order.extend(0..self.nc);
+        order.sort_by(|&a, &b| self.totals[a].total_cmp(&self.totals[b]));
         for _ in 0..4 {
+            sweeps += 1;
             let mut worst: f64 = 0.0;
-            for j in 0..self.nc {
+            for &j in &order {
                 if !self.active_c[j] || self.signed[j] {
                     continue;
                 }
@@ -360,6 +370,8 @@ impl<'m> Workspace<'m> {
                 break;
             }
         }
+        self.order = order;
+        sweeps
     }
 
     /// Damped Newton from `self.u`. Returns (converged, iterations, residual).
@@ -417,7 +429,8 @@ impl<'m> Workspace<'m> {
                     continue;
                 }
                 let mut t = 1.0;
-                for _ in 0..60 {
+                // the log form is only worth a mildly damped step; otherwise use plain Newton
+                for _ in 0..if log_form { 4 } else { 60 } {
                     for j in 0..nc {
                         u_try[j] = u[j] + t * du[j];
                     }
@@ -550,15 +563,18 @@ impl<'m> Workspace<'m> {
             self.c.iter_mut().for_each(|c| *c = 0.0);
             return Ok((0, 0.0, SolveRoute::Trivial));
         }
-        self.cold_start();
-        if let Some(s) = start {
-            for j in 0..self.nc {
-                if self.active_c[j] && s[j].is_finite() {
-                    self.u[j] = s[j];
+        let warm = start.filter(|s| (0..self.nc).all(|j| !self.active_c[j] || s[j].is_finite()));
+        let sweeps0 = match warm {
+            Some(s) => {
+                for j in 0..self.nc {
+                    self.u[j] = if self.active_c[j] { s[j] } else { 0.0 };
                 }
+                0
             }
-        }
+            None => self.cold_start(),
+        };
         let (ok, it, rel) = self.newton(MAX_NEWTON);
+        let it = it + sweeps0;
         if ok {
             return Ok((it, rel, SolveRoute::Newton));
         }
