@@ -383,13 +383,13 @@ impl ValidModel {
     /// # Panics
     /// If `out` is shorter than the number of species.
     pub fn log10_betas_at(&self, t_k: f64, out: &mut [f64]) {
-        for (o, s) in out.iter_mut().zip(&self.species) {
-            *o = s.law.log10_beta_at(t_k);
-        }
         assert!(
             out.len() >= self.species.len(),
             "output shorter than the species list"
         );
+        for (o, s) in out.iter_mut().zip(&self.species) {
+            *o = s.law.log10_beta_at(t_k);
+        }
     }
 
     /// log₁₀ β of every species at each temperature: samples × species, ready for

@@ -740,7 +740,7 @@ pub fn speciate(
 ///
 /// # Examples
 /// ```
-/// use isosbestic::speciation::{concentration_derivatives, speciate, EquilibriumModel};
+/// use isosbestic::speciation::{concentration_derivatives, EquilibriumModel};
 /// let model = EquilibriumModel::from_toml_str(r#"
 ///     components = [{ name = "M", absorbs = true }, { name = "L", absorbs = false }]
 ///     [[species]]
