@@ -337,6 +337,32 @@ fn signed_components_accept_zero_and_negative_totals() {
     }
 }
 
+proptest! {
+    #[test]
+    fn hydrolysis_with_a_signed_proton_balance_holds_for_random_constants_and_totals(
+        lw in -15.0..-13.0f64, l1 in -14.0..-2.0f64, l2 in -25.0..-8.0f64,
+        lm in -9.0..0.0f64, t_h in -1e-2..1e-2f64,
+    ) {
+        // with OH⁻ present every real T_H has a solution (x_H − Kw/x_H spans all reals)
+        let m = model(
+            &["M", "H"],
+            vec![
+                formed("OH", &[("H", -1)], lw),
+                formed("MOH", &[("M", 1), ("H", -1)], l1),
+                formed("MOH2", &[("M", 1), ("H", -2)], l2),
+            ],
+        )
+        .check()
+        .unwrap();
+        let lb = [0.0, 0.0, lw, l1, l2];
+        let totals = [10f64.powf(lm), t_h];
+        let s = speciate(&m, &lb, &totals, "h").unwrap();
+        prop_assert!(mass_balance_residual(&m, &s.concentrations, &totals) < 1e-10);
+        prop_assert!(mass_action_error(&m, &lb, &s.concentrations) < 1e-12);
+        prop_assert!(s.concentrations.iter().all(|&c| c > 0.0 && c.is_finite()));
+    }
+}
+
 #[test]
 fn totals_that_admit_no_solution_give_not_converged_naming_the_sample() {
     // M + MOH only (no OH⁻): the H balance x_H − [MOH] = T_H needs T_H > −T_M
