@@ -204,6 +204,7 @@ pub trait FormationLaw {
 }
 
 /// Temperature-independent log β (ΔH° = 0). Its one parameter may still be fitted.
+/// [`FormationLaw::to_standard`] reports ΔG° and ΔS° = −ΔG°/θ at θ = 298.15 K.
 #[derive(Debug, Clone, Copy, PartialEq, Serialize, Deserialize)]
 #[serde(deny_unknown_fields)]
 pub struct FixedLaw {

@@ -37,8 +37,8 @@ pub enum SolveRoute {
 pub enum Start {
     /// From the totals, refined by a few diagonal (one component at a time) log updates.
     Cold,
-    /// From the free concentrations already in the batch (e.g. the previous iteration of a fit),
-    /// where they are positive; cold otherwise.
+    /// From the free concentrations already in the batch (e.g. the previous iteration of a fit)
+    /// when every component present in the sample has a positive value there; cold otherwise.
     Warm,
 }
 
