@@ -1,0 +1,964 @@
+//! The mass-balance solver: damped Newton on the convex potential in ln(free concentrations),
+//! a coordinate-wise bracketed fallback, and implicit derivatives.
+
+// Dense small-matrix kernels read best with explicit indices.
+#![allow(clippy::needless_range_loop)]
+
+use super::SpeciationError;
+use super::model::ValidModel;
+use ndarray::{Array2, Array3, ArrayView2};
+use serde::{Deserialize, Serialize};
+use std::f64::consts::LN_10;
+
+/// Convergence tolerance on the relative mass-balance residual (see [`Speciation::residual`]).
+pub const RESIDUAL_TOLERANCE: f64 = 1e-12;
+/// A residual below this is accepted when rounding stops further progress.
+const ROUNDING_FLOOR: f64 = 1e-10;
+const MAX_NEWTON: usize = 200;
+const MAX_SWEEPS: usize = 200;
+/// Largest change of any ln(free concentration) in one Newton step.
+const MAX_STEP: f64 = 30.0;
+
+/// Which path produced a solution.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
+#[serde(rename_all = "snake_case")]
+pub enum SolveRoute {
+    /// Nothing to solve: every component total is zero.
+    Trivial,
+    /// Damped Newton converged directly.
+    Newton,
+    /// Newton stalled; coordinate-wise bracketed solves brought it close, then Newton finished.
+    Fallback,
+}
+
+/// Where the solver starts.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
+#[serde(rename_all = "snake_case")]
+pub enum Start {
+    /// From the totals, refined by a few diagonal (one component at a time) log updates.
+    Cold,
+    /// From the free concentrations already in the batch (e.g. the previous iteration of a fit)
+    /// when every component present in the sample has a positive value there; cold otherwise.
+    Warm,
+}
+
+/// Whether [`speciate_all`] also returns ∂c/∂ log₁₀ β.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
+#[serde(rename_all = "snake_case")]
+pub enum Derivatives {
+    /// Concentrations only.
+    Skip,
+    /// Also ∂cᵢ/∂ log₁₀ βₖ for all species i, k.
+    LogBeta,
+}
+
+/// The speciation of one sample.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct Speciation {
+    /// Concentration of every species (model order, free components first), mol/L. Row of C.
+    pub concentrations: Vec<f64>,
+    /// Free concentration of each component, mol/L (equal to the first entries of
+    /// `concentrations`).
+    pub free: Vec<f64>,
+    /// Work done: Newton iterations plus start-up and fallback sweeps.
+    pub iterations: usize,
+    /// Largest relative mass-balance residual max_j |Σᵢ aᵢⱼ cᵢ − T_j| / max(|T_j|, Σᵢ |aᵢⱼ| cᵢ).
+    pub residual: f64,
+    /// How the solution was found.
+    pub route: SolveRoute,
+}
+
+/// Speciation of many samples at once: rows are samples in input order.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct SpeciationBatch {
+    /// C: samples × species, mol/L.
+    pub concentrations: Array2<f64>,
+    /// Free component concentrations: samples × components, mol/L.
+    pub free: Array2<f64>,
+    /// Iterations per sample.
+    pub iterations: Vec<usize>,
+    /// Relative mass-balance residual per sample.
+    pub residuals: Vec<f64>,
+    /// ∂cᵢ/∂ log₁₀ βₖ as `[sample, i, k]` (samples × species × species), when asked for.
+    pub derivatives: Option<Array3<f64>>,
+}
+
+impl SpeciationBatch {
+    /// A zeroed batch of the right shape (to be filled by [`speciate_all_into`]).
+    pub fn new(model: &ValidModel, n_samples: usize, derivatives: Derivatives) -> Self {
+        let nsp = model.n_species();
+        Self {
+            concentrations: Array2::zeros((n_samples, nsp)),
+            free: Array2::zeros((n_samples, model.n_components())),
+            iterations: vec![0; n_samples],
+            residuals: vec![0.0; n_samples],
+            derivatives: match derivatives {
+                Derivatives::Skip => None,
+                Derivatives::LogBeta => Some(Array3::zeros((n_samples, nsp, nsp))),
+            },
+        }
+    }
+}
+
+/// Solver state with all buffers allocated once per model (no allocation per iteration or per
+/// sample).
+struct Workspace<'m> {
+    nc: usize,
+    nsp: usize,
+    a: &'m [f64],
+    signed: &'m [bool],
+    active_c: Vec<bool>,
+    active_s: Vec<bool>,
+    ln_beta: Vec<f64>,
+    totals: Vec<f64>,
+    u: Vec<f64>,
+    u_try: Vec<f64>,
+    du: Vec<f64>,
+    c: Vec<f64>,
+    c_try: Vec<f64>,
+    g: Vec<f64>,
+    g_try: Vec<f64>,
+    h: Vec<f64>,
+    l: Vec<f64>,
+    d: Vec<f64>,
+    rhs: Vec<f64>,
+    order: Vec<usize>,
+}
+
+impl<'m> Workspace<'m> {
+    fn new(model: &'m ValidModel) -> Self {
+        let nc = model.n_components();
+        let nsp = model.n_species();
+        Self {
+            nc,
+            nsp,
+            a: model.stoichiometry(),
+            signed: model.signed_components(),
+            active_c: vec![false; nc],
+            active_s: vec![false; nsp],
+            ln_beta: vec![0.0; nsp],
+            totals: vec![0.0; nc],
+            u: vec![0.0; nc],
+            u_try: vec![0.0; nc],
+            du: vec![0.0; nc],
+            c: vec![0.0; nsp],
+            c_try: vec![0.0; nsp],
+            g: vec![0.0; nc],
+            g_try: vec![0.0; nc],
+            h: vec![0.0; nc * nc],
+            l: vec![0.0; nc * nc],
+            d: vec![0.0; nc],
+            rhs: vec![0.0; nc],
+            order: Vec::with_capacity(nc),
+        }
+    }
+
+    /// Validates and loads one sample's inputs; marks absent components and species.
+    fn load<I, J>(
+        &mut self,
+        model: &ValidModel,
+        log_betas: I,
+        totals: J,
+        sample: &str,
+    ) -> Result<(), SpeciationError>
+    where
+        I: IntoIterator<Item = f64>,
+        J: IntoIterator<Item = f64>,
+    {
+        for (k, lb) in log_betas.into_iter().enumerate().take(self.nsp) {
+            if !lb.is_finite() {
+                return Err(SpeciationError::InvalidLogBeta {
+                    sample: sample.to_string(),
+                    species: model.species()[k].name.clone(),
+                    value: lb,
+                });
+            }
+            if k < self.nc && lb.abs() > 0.0 {
+                return Err(SpeciationError::FreeComponentLogBeta {
+                    sample: sample.to_string(),
+                    component: model.component_names()[k].clone(),
+                    value: lb,
+                });
+            }
+            self.ln_beta[k] = LN_10 * lb;
+        }
+        for (j, t) in totals.into_iter().enumerate().take(self.nc) {
+            let ok = t.is_finite() && (t >= 0.0 || self.signed[j]);
+            if !ok {
+                return Err(SpeciationError::InvalidTotal {
+                    sample: sample.to_string(),
+                    component: model.component_names()[j].clone(),
+                    value: t,
+                });
+            }
+            self.totals[j] = t;
+            // A component that only ever enters with positive coefficients and has total 0 is
+            // absent: its free concentration and every species containing it are exactly 0.
+            self.active_c[j] = t > 0.0 || self.signed[j];
+        }
+        for i in 0..self.nsp {
+            let row = &self.a[i * self.nc..(i + 1) * self.nc];
+            self.active_s[i] = row
+                .iter()
+                .zip(&self.active_c)
+                .all(|(&aij, &on)| on || aij.abs() == 0.0);
+        }
+        Ok(())
+    }
+
+    /// cᵢ = βᵢ exp(Σⱼ aᵢⱼ uⱼ) for active species, 0 otherwise.
+    fn species_from(&self, u: &[f64], c: &mut [f64]) {
+        for i in 0..self.nsp {
+            c[i] = if self.active_s[i] {
+                let row = &self.a[i * self.nc..(i + 1) * self.nc];
+                let mut e = self.ln_beta[i];
+                for (j, &aij) in row.iter().enumerate() {
+                    if self.active_c[j] {
+                        e += aij * u[j];
+                    }
+                }
+                e.exp()
+            } else {
+                0.0
+            };
+        }
+    }
+
+    /// g = Aᵀc − T (zero for absent components); returns (relative residual, potential
+    /// f = Σ cᵢ − Σ Tⱼ uⱼ, whose gradient is g).
+    fn residual(&self, u: &[f64], c: &[f64], g: &mut [f64]) -> (f64, f64) {
+        let mut rel: f64 = 0.0;
+        let mut f: f64 = c.iter().sum();
+        for j in 0..self.nc {
+            if !self.active_c[j] {
+                g[j] = 0.0;
+                continue;
+            }
+            let mut s = 0.0;
+            let mut scale = self.totals[j].abs();
+            for i in 0..self.nsp {
+                let aij = self.a[i * self.nc + j];
+                s += aij * c[i];
+                scale += aij.abs() * c[i];
+            }
+            g[j] = s - self.totals[j];
+            f -= self.totals[j] * u[j];
+            // scale ≥ the larger of |T| and Σ|a|c (their sum, within a factor of 2)
+            let r = if scale > 0.0 {
+                2.0 * g[j].abs() / scale
+            } else {
+                0.0
+            };
+            rel = rel.max(if r.is_nan() { f64::INFINITY } else { r });
+        }
+        if f.is_nan() {
+            f = f64::INFINITY;
+        }
+        (rel, f)
+    }
+
+    /// H = Aᵀ diag(c) A (identity rows for absent components), factorised with Jacobi scaling
+    /// into `l`/`d`. Returns false when not positive definite even after regularisation.
+    fn factor_jacobian(&mut self, c: &[f64]) -> bool {
+        let nc = self.nc;
+        for j in 0..nc {
+            for k in 0..=j {
+                let v = if self.active_c[j] && self.active_c[k] {
+                    let mut s = 0.0;
+                    for i in 0..self.nsp {
+                        s += self.a[i * nc + j] * self.a[i * nc + k] * c[i];
+                    }
+                    s
+                } else if j == k {
+                    1.0
+                } else {
+                    0.0
+                };
+                self.h[j * nc + k] = v;
+                self.h[k * nc + j] = v;
+            }
+        }
+        for j in 0..nc {
+            let hjj = self.h[j * nc + j];
+            self.d[j] = if hjj > 0.0 && hjj.is_finite() {
+                1.0 / hjj.sqrt()
+            } else {
+                1.0
+            };
+        }
+        let mut mu = 0.0;
+        for _ in 0..8 {
+            if cholesky_scaled(&self.h, &self.d, nc, mu, &mut self.l) {
+                return true;
+            }
+            mu = if mu > 0.0 { mu * 100.0 } else { 1e-12 };
+        }
+        false
+    }
+
+    /// Solves H x = b with the factor from [`Workspace::factor_jacobian`]; `x` overwrites `b`.
+    fn solve_factored(&self, b: &mut [f64]) {
+        let nc = self.nc;
+        for j in 0..nc {
+            b[j] *= self.d[j];
+        }
+        for j in 0..nc {
+            let mut s = b[j];
+            for k in 0..j {
+                s -= self.l[j * nc + k] * b[k];
+            }
+            b[j] = s / self.l[j * nc + j];
+        }
+        for j in (0..nc).rev() {
+            let mut s = b[j];
+            for k in j + 1..nc {
+                s -= self.l[k * nc + j] * b[k];
+            }
+            b[j] = s / self.l[j * nc + j];
+        }
+        for j in 0..nc {
+            b[j] *= self.d[j];
+        }
+    }
+
+    /// Cold start: uⱼ = ln Tⱼ (or ln 1e-7 M for a signed component with T ≤ 0), then a few
+    /// sweeps (scarcest component first) of the diagonal log update uⱼ += ln(Tⱼ/Sⱼ)/āⱼ, Sⱼ = Σ aᵢⱼcᵢ,
+    /// āⱼ = Σ aᵢⱼ²cᵢ/Sⱼ, on positive components: this removes the huge excesses a strong
+    /// complex produces at the start.
+    fn cold_start(&mut self) -> usize {
+        for j in 0..self.nc {
+            self.u[j] = if !self.active_c[j] {
+                0.0
+            } else if self.signed[j] {
+                self.totals[j].abs().max(1e-7).ln()
+            } else {
+                self.totals[j].ln()
+            };
+        }
+        let mut sweeps = 0;
+        // scarcest component first: its free concentration moves by many decades while an
+        // abundant component stays near its total (the reverse order would wrongly starve it)
+        let mut order = std::mem::take(&mut self.order);
+        order.clear();
+        order.extend(0..self.nc);
+        order.sort_by(|&a, &b| self.totals[a].total_cmp(&self.totals[b]));
+        for _ in 0..4 {
+            sweeps += 1;
+            let mut worst: f64 = 0.0;
+            for &j in &order {
+                if !self.active_c[j] || self.signed[j] {
+                    continue;
+                }
+                let u = std::mem::take(&mut self.u);
+                let mut c = std::mem::take(&mut self.c);
+                self.species_from(&u, &mut c);
+                self.u = u;
+                self.c = c;
+                let (mut s, mut s2) = (0.0, 0.0);
+                for i in 0..self.nsp {
+                    let aij = self.a[i * self.nc + j];
+                    s += aij * self.c[i];
+                    s2 += aij * aij * self.c[i];
+                }
+                if s > 0.0 && s.is_finite() && s2.is_finite() {
+                    let ratio = (self.totals[j] / s).ln();
+                    worst = worst.max(ratio.abs());
+                    self.u[j] += ratio / (s2 / s);
+                }
+            }
+            if worst < std::f64::consts::LN_2 {
+                break;
+            }
+        }
+        self.order = order;
+        sweeps
+    }
+
+    /// Damped Newton from `self.u`. Returns (converged, iterations, residual).
+    fn newton(&mut self, budget: usize) -> (bool, usize, f64) {
+        let nc = self.nc;
+        let mut u = std::mem::take(&mut self.u);
+        let mut c = std::mem::take(&mut self.c);
+        let mut g = std::mem::take(&mut self.g);
+        self.species_from(&u, &mut c);
+        let (mut rel, mut f) = self.residual(&u, &c, &mut g);
+        let mut it = 0;
+        let mut converged = false;
+        while it < budget {
+            if rel <= RESIDUAL_TOLERANCE {
+                converged = true;
+                break;
+            }
+            it += 1;
+            if !self.factor_jacobian(&c) {
+                break;
+            }
+            let mut du = std::mem::take(&mut self.du);
+            let mut u_try = std::mem::take(&mut self.u_try);
+            let mut c_try = std::mem::take(&mut self.c_try);
+            let mut g_try = std::mem::take(&mut self.g_try);
+            let mut accepted = false;
+            // Direction 1: Newton on ln Sⱼ = ln Tⱼ for positive components (J δu = −S∘ln(S/T)),
+            // which takes long steps when a species is in huge excess and equals Newton's step
+            // to second order near the solution. Direction 2: plain Newton, J δu = −g.
+            for log_form in [true, false] {
+                let mut used_log = false;
+                for j in 0..nc {
+                    let t = self.totals[j];
+                    du[j] = if log_form && self.active_c[j] && !self.signed[j] && t > 0.0 {
+                        used_log = true;
+                        -(g[j] + t) * (g[j] / t).ln_1p()
+                    } else {
+                        -g[j]
+                    };
+                }
+                if log_form && !used_log {
+                    continue;
+                }
+                self.solve_factored(&mut du);
+                let big = du.iter().fold(0.0f64, |m, v| m.max(v.abs()));
+                if !big.is_finite() {
+                    continue;
+                }
+                if big > MAX_STEP {
+                    let s = MAX_STEP / big;
+                    du.iter_mut().for_each(|v| *v *= s);
+                }
+                let slope: f64 = g.iter().zip(&du).map(|(a, b)| a * b).sum();
+                if log_form && (slope >= 0.0 || slope.is_nan()) {
+                    continue;
+                }
+                let mut t = 1.0;
+                // the log form is only worth a mildly damped step; otherwise use plain Newton
+                for _ in 0..if log_form { 4 } else { 60 } {
+                    for j in 0..nc {
+                        u_try[j] = u[j] + t * du[j];
+                    }
+                    self.species_from(&u_try, &mut c_try);
+                    let (rel_t, f_t) = self.residual(&u_try, &c_try, &mut g_try);
+                    // Armijo on the convex potential, or a clear drop of the residual (near the
+                    // solution the potential's decrease is below its rounding).
+                    if f_t.is_finite() && (f_t <= f + 1e-4 * t * slope || rel_t <= 0.5 * rel) {
+                        std::mem::swap(&mut u, &mut u_try);
+                        std::mem::swap(&mut c, &mut c_try);
+                        std::mem::swap(&mut g, &mut g_try);
+                        rel = rel_t;
+                        f = f_t;
+                        accepted = true;
+                        break;
+                    }
+                    t *= 0.5;
+                }
+                if accepted {
+                    break;
+                }
+            }
+            self.u_try = u_try;
+            self.c_try = c_try;
+            self.g_try = g_try;
+            self.du = du;
+            if !accepted {
+                break;
+            }
+        }
+        if !converged && rel <= ROUNDING_FLOOR {
+            converged = true;
+        }
+        self.u = u;
+        self.c = c;
+        self.g = g;
+        (converged, it, rel)
+    }
+
+    /// Fallback: Gauss–Seidel sweeps, each component solved exactly (bracketed safeguarded
+    /// Newton/bisection on the monotone 1-D mass balance) with the others held. For one
+    /// component this is the whole solution. Returns sweeps used.
+    fn coordinate_sweeps(&mut self, target: f64) -> usize {
+        let mut u = std::mem::take(&mut self.u);
+        let mut c = std::mem::take(&mut self.c);
+        let mut g = std::mem::take(&mut self.g);
+        let mut sweeps = 0;
+        for _ in 0..MAX_SWEEPS {
+            sweeps += 1;
+            for j in 0..self.nc {
+                if !self.active_c[j] {
+                    continue;
+                }
+                self.species_from(&u, &mut c);
+                u[j] = self.solve_one(j, u[j], &c);
+            }
+            self.species_from(&u, &mut c);
+            let (rel, _) = self.residual(&u, &c, &mut g);
+            if rel <= target {
+                break;
+            }
+        }
+        self.u = u;
+        self.c = c;
+        self.g = g;
+        sweeps
+    }
+
+    /// φ(v) = Σᵢ aᵢⱼ cᵢ exp(aᵢⱼ (v − u₀)) − Tⱼ and φ'(v).
+    fn phi(&self, j: usize, u0: f64, c: &[f64], v: f64) -> (f64, f64) {
+        let (mut s, mut ds) = (0.0, 0.0);
+        for i in 0..self.nsp {
+            let aij = self.a[i * self.nc + j];
+            if aij.abs() > 0.0 && c[i] > 0.0 {
+                let ci = c[i] * (aij * (v - u0)).exp();
+                s += aij * ci;
+                ds += aij * aij * ci;
+            }
+        }
+        (s - self.totals[j], ds)
+    }
+
+    fn solve_one(&self, j: usize, u0: f64, c: &[f64]) -> f64 {
+        let sign = |v: f64| {
+            let p = self.phi(j, u0, c, v).0;
+            if p.is_nan() { 1.0 } else { p }
+        };
+        let (mut lo, mut hi) = (u0, u0);
+        let mut step = 1.0;
+        while sign(hi) < 0.0 && step < 4096.0 {
+            hi += step;
+            step *= 2.0;
+        }
+        step = 1.0;
+        while sign(lo) > 0.0 && step < 4096.0 {
+            lo -= step;
+            step *= 2.0;
+        }
+        let mut v = 0.5 * (lo + hi);
+        for _ in 0..200 {
+            let (p, dp) = self.phi(j, u0, c, v);
+            if p.abs() <= 0.0 {
+                return v;
+            }
+            if p > 0.0 || p.is_nan() {
+                hi = v;
+            } else {
+                lo = v;
+            }
+            let newton = v - p / dp;
+            v = if newton.is_finite() && newton > lo && newton < hi {
+                newton
+            } else {
+                0.5 * (lo + hi)
+            };
+            if hi - lo <= 4.0 * f64::EPSILON * v.abs().max(1.0) {
+                break;
+            }
+        }
+        v
+    }
+
+    /// Solves the loaded sample. `start`: optional ln free concentrations.
+    fn solve(
+        &mut self,
+        start: Option<&[f64]>,
+        sample: &str,
+    ) -> Result<(usize, f64, SolveRoute), SpeciationError> {
+        if !self.active_c.iter().any(|&on| on) {
+            self.c.iter_mut().for_each(|c| *c = 0.0);
+            return Ok((0, 0.0, SolveRoute::Trivial));
+        }
+        let warm = start.filter(|s| (0..self.nc).all(|j| !self.active_c[j] || s[j].is_finite()));
+        let sweeps0 = match warm {
+            Some(s) => {
+                for j in 0..self.nc {
+                    self.u[j] = if self.active_c[j] { s[j] } else { 0.0 };
+                }
+                0
+            }
+            None => self.cold_start(),
+        };
+        let (ok, it, rel) = self.newton(MAX_NEWTON);
+        let it = it + sweeps0;
+        if ok {
+            return Ok((it, rel, SolveRoute::Newton));
+        }
+        let sweeps = self.coordinate_sweeps(1e-6);
+        let (ok2, it2, rel2) = self.newton(MAX_NEWTON);
+        let total = it + sweeps + it2;
+        if ok2 {
+            return Ok((total, rel2, SolveRoute::Fallback));
+        }
+        Err(SpeciationError::NotConverged {
+            sample: sample.to_string(),
+            residual: rel.min(rel2),
+            iterations: total,
+        })
+    }
+
+    /// ∂cᵢ/∂log₁₀βₖ into `out` (species × species, row-major) at the current solution:
+    /// H ∂u/∂ln βₖ = −cₖ aₖ, ∂cᵢ/∂ln βₖ = cᵢ (δᵢₖ + aᵢ·∂u/∂ln βₖ).
+    fn derivatives_into(&mut self, out: &mut [f64], sample: &str) -> Result<(), SpeciationError> {
+        let (nc, nsp) = (self.nc, self.nsp);
+        out.iter_mut().for_each(|v| *v = 0.0);
+        let c = std::mem::take(&mut self.c);
+        let ok = self.factor_jacobian(&c);
+        self.c = c;
+        if !ok {
+            return Err(SpeciationError::SingularJacobian {
+                sample: sample.to_string(),
+            });
+        }
+        let mut rhs = std::mem::take(&mut self.rhs);
+        for k in 0..nsp {
+            let ck = self.c[k];
+            if !self.active_s[k] || ck <= 0.0 {
+                continue;
+            }
+            for j in 0..nc {
+                rhs[j] = if self.active_c[j] {
+                    -ck * self.a[k * nc + j]
+                } else {
+                    0.0
+                };
+            }
+            self.solve_factored(&mut rhs);
+            for i in 0..nsp {
+                if !self.active_s[i] {
+                    continue;
+                }
+                let mut s = if i == k { 1.0 } else { 0.0 };
+                for j in 0..nc {
+                    s += self.a[i * nc + j] * rhs[j];
+                }
+                out[i * nsp + k] = LN_10 * self.c[i] * s;
+            }
+        }
+        self.rhs = rhs;
+        Ok(())
+    }
+}
+
+/// Cholesky of (D H D + μI) into the lower triangle of `l`; false if a pivot is not positive.
+fn cholesky_scaled(h: &[f64], d: &[f64], n: usize, mu: f64, l: &mut [f64]) -> bool {
+    for j in 0..n {
+        for k in 0..=j {
+            let mut s = d[j] * h[j * n + k] * d[k];
+            if j == k {
+                s += mu;
+            }
+            for m in 0..k {
+                s -= l[j * n + m] * l[k * n + m];
+            }
+            if j == k {
+                if s <= 1e-14 || s.is_nan() {
+                    return false;
+                }
+                l[j * n + j] = s.sqrt();
+            } else {
+                l[j * n + k] = s / l[k * n + k];
+            }
+        }
+    }
+    true
+}
+
+fn check_len(what: &'static str, expected: usize, found: usize) -> Result<(), SpeciationError> {
+    if expected == found {
+        Ok(())
+    } else {
+        Err(SpeciationError::Shape {
+            what,
+            expected,
+            found,
+        })
+    }
+}
+
+/// Solves the mass balance of one sample.
+///
+/// `log_betas`: log₁₀ β of every species in model order (free components must be 0);
+/// `totals`: total concentration of every component, mol/L.
+///
+/// # Errors
+/// [`SpeciationError::Shape`] for wrong lengths; [`SpeciationError::InvalidLogBeta`],
+/// [`SpeciationError::FreeComponentLogBeta`], [`SpeciationError::InvalidTotal`] for bad inputs;
+/// [`SpeciationError::NotConverged`] naming `sample_id` if no solution was found (possible
+/// only when a signed component's total admits none).
+///
+/// # Examples
+/// ```
+/// use isosbestic::speciation::{speciate, EquilibriumModel};
+/// let model = EquilibriumModel::from_toml_str(r#"
+///     components = [{ name = "M", absorbs = true }, { name = "L", absorbs = false }]
+///     [[species]]
+///     name = "ML"
+///     stoichiometry = { M = 1, L = 1 }
+///     absorbs = true
+///     law = { kind = "fixed", log_beta = { value = 3.0 } }
+/// "#)?.check()?;
+/// let s = speciate(&model, &[0.0, 0.0, 3.0], &[1e-3, 2e-3], "s1")?;
+/// let (m, l, ml) = (s.concentrations[0], s.concentrations[1], s.concentrations[2]);
+/// approx::assert_relative_eq!(m + ml, 1e-3, max_relative = 1e-12);
+/// approx::assert_relative_eq!(l + ml, 2e-3, max_relative = 1e-12);
+/// approx::assert_relative_eq!(ml / (m * l), 1e3, max_relative = 1e-10);
+/// # Ok::<(), isosbestic::speciation::SpeciationError>(())
+/// ```
+pub fn speciate(
+    model: &ValidModel,
+    log_betas: &[f64],
+    totals: &[f64],
+    sample_id: &str,
+) -> Result<Speciation, SpeciationError> {
+    check_len("log_betas (species)", model.n_species(), log_betas.len())?;
+    check_len("totals (components)", model.n_components(), totals.len())?;
+    let mut ws = Workspace::new(model);
+    ws.load(
+        model,
+        log_betas.iter().copied(),
+        totals.iter().copied(),
+        sample_id,
+    )?;
+    let (iterations, residual, route) = ws.solve(None, sample_id)?;
+    let concentrations = ws.c.clone();
+    Ok(Speciation {
+        free: concentrations[..ws.nc].to_vec(),
+        concentrations,
+        iterations,
+        residual,
+        route,
+    })
+}
+
+/// ∂cᵢ/∂ log₁₀ βₖ (species × species; row i, column k) at a solution from [`speciate`], by
+/// implicit differentiation of the mass balance Aᵀc(u, β) = T:
+///
+/// ```text
+/// (Aᵀ diag(c) A) ∂u/∂ln βₖ = −cₖ aₖ,   ∂cᵢ/∂log₁₀ βₖ = ln 10 · cᵢ (δᵢₖ + aᵢ · ∂u/∂ln βₖ)
+/// ```
+///
+/// One factorisation per sample, one triangular solve per species. Absent species (a
+/// component with total 0) have zero rows and columns.
+///
+/// # Errors
+/// As [`speciate`], plus [`SpeciationError::SingularJacobian`] if the Jacobian cannot be factorised.
+///
+/// # Examples
+/// ```
+/// use isosbestic::speciation::{concentration_derivatives, EquilibriumModel};
+/// let model = EquilibriumModel::from_toml_str(r#"
+///     components = [{ name = "M", absorbs = true }, { name = "L", absorbs = false }]
+///     [[species]]
+///     name = "ML"
+///     stoichiometry = { M = 1, L = 1 }
+///     absorbs = true
+///     law = { kind = "fixed", log_beta = { value = 3.0 } }
+/// "#)?.check()?;
+/// let d = concentration_derivatives(&model, &[0.0, 0.0, 3.0], &[1e-3, 2e-3], "s1")?;
+/// // mass balance of M holds whatever β: ∂[M]/∂logβ + ∂[ML]/∂logβ = 0
+/// approx::assert_abs_diff_eq!(d[[0, 2]] + d[[2, 2]], 0.0, epsilon = 1e-18);
+/// assert!(d[[2, 2]] > 0.0);
+/// # Ok::<(), isosbestic::speciation::SpeciationError>(())
+/// ```
+pub fn concentration_derivatives(
+    model: &ValidModel,
+    log_betas: &[f64],
+    totals: &[f64],
+    sample_id: &str,
+) -> Result<Array2<f64>, SpeciationError> {
+    check_len("log_betas (species)", model.n_species(), log_betas.len())?;
+    check_len("totals (components)", model.n_components(), totals.len())?;
+    let mut ws = Workspace::new(model);
+    ws.load(
+        model,
+        log_betas.iter().copied(),
+        totals.iter().copied(),
+        sample_id,
+    )?;
+    ws.solve(None, sample_id)?;
+    let nsp = model.n_species();
+    let mut out = Array2::zeros((nsp, nsp));
+    if let Some(s) = out.as_slice_mut() {
+        ws.derivatives_into(s, sample_id)?;
+    }
+    Ok(out)
+}
+
+/// Speciates every sample: `log_betas` is samples × species (e.g. from
+/// [`ValidModel::log10_betas`]), `totals` samples × components, `sample_ids` one per sample
+/// (used in errors). Allocates the result; see [`speciate_all_into`] to reuse one.
+///
+/// # Errors
+/// [`SpeciationError::Shape`] on mismatched sizes; otherwise the first failing sample's error
+/// (see [`speciate`]), which names that sample.
+///
+/// # Examples
+/// ```
+/// use isosbestic::speciation::{speciate_all, Derivatives, EquilibriumModel};
+/// use ndarray::array;
+/// let model = EquilibriumModel::from_toml_str(r#"
+///     components = [{ name = "M", absorbs = true }, { name = "L", absorbs = false }]
+///     [[species]]
+///     name = "ML"
+///     stoichiometry = { M = 1, L = 1 }
+///     absorbs = true
+///     law = { kind = "van_t_hoff", log_beta_ref = { value = 3.0 }, dh_ref = { value = -20000.0 } }
+/// "#)?.check()?;
+/// let lb = model.log10_betas(&[288.15, 298.15, 318.15]);
+/// let totals = array![[1e-3, 1e-3], [1e-3, 1e-3], [1e-3, 1e-3]];
+/// let b = speciate_all(&model, lb.view(), totals.view(), &["a", "b", "c"], Derivatives::LogBeta)?;
+/// // exothermic: less complex when warmer
+/// assert!(b.concentrations[[0, 2]] > b.concentrations[[2, 2]]);
+/// assert_eq!(b.derivatives.unwrap().dim(), (3, 3, 3));
+/// # Ok::<(), isosbestic::speciation::SpeciationError>(())
+/// ```
+pub fn speciate_all<S: AsRef<str>>(
+    model: &ValidModel,
+    log_betas: ArrayView2<f64>,
+    totals: ArrayView2<f64>,
+    sample_ids: &[S],
+    derivatives: Derivatives,
+) -> Result<SpeciationBatch, SpeciationError> {
+    let mut batch = SpeciationBatch::new(model, log_betas.nrows(), derivatives);
+    speciate_all_into(model, log_betas, totals, sample_ids, Start::Cold, &mut batch)?;
+    Ok(batch)
+}
+
+/// As [`speciate_all`], writing into an existing batch (no allocation beyond one small
+/// workspace). With [`Start::Warm`] each sample starts from the free concentrations already in
+/// `batch` (the previous call's answer): the natural choice inside a fit, where parameters
+/// change little between iterations. Derivatives are computed if `batch.derivatives` is `Some`.
+///
+/// # Errors
+/// As [`speciate_all`]; also [`SpeciationError::Shape`] if `batch` has the wrong shape.
+pub fn speciate_all_into<S: AsRef<str>>(
+    model: &ValidModel,
+    log_betas: ArrayView2<f64>,
+    totals: ArrayView2<f64>,
+    sample_ids: &[S],
+    start: Start,
+    batch: &mut SpeciationBatch,
+) -> Result<(), SpeciationError> {
+    let (ns, nsp, nc) = (log_betas.nrows(), model.n_species(), model.n_components());
+    check_len("log_betas columns (species)", nsp, log_betas.ncols())?;
+    check_len("totals rows (samples)", ns, totals.nrows())?;
+    check_len("totals columns (components)", nc, totals.ncols())?;
+    check_len("sample ids", ns, sample_ids.len())?;
+    check_len("batch concentrations rows", ns, batch.concentrations.nrows())?;
+    check_len("batch concentrations columns", nsp, batch.concentrations.ncols())?;
+    check_len("batch free rows", ns, batch.free.nrows())?;
+    check_len("batch free columns", nc, batch.free.ncols())?;
+    batch.iterations.resize(ns, 0);
+    batch.residuals.resize(ns, 0.0);
+    if let Some(d) = &batch.derivatives {
+        check_len("batch derivatives", ns * nsp * nsp, d.len())?;
+    }
+    let mut ws = Workspace::new(model);
+    let mut start_u = vec![0.0; nc];
+    let mut dbuf = vec![0.0; if batch.derivatives.is_some() { nsp * nsp } else { 0 }];
+    for (s, id) in sample_ids.iter().enumerate() {
+        let id = id.as_ref();
+        ws.load(
+            model,
+            log_betas.row(s).iter().copied(),
+            totals.row(s).iter().copied(),
+            id,
+        )?;
+        let warm = match start {
+            Start::Warm => {
+                for (u, &x) in start_u.iter_mut().zip(batch.free.row(s)) {
+                    *u = if x > 0.0 { x.ln() } else { f64::NAN };
+                }
+                Some(start_u.as_slice())
+            }
+            Start::Cold => None,
+        };
+        let (it, rel, _) = ws.solve(warm, id)?;
+        batch.iterations[s] = it;
+        batch.residuals[s] = rel;
+        for (o, &c) in batch.concentrations.row_mut(s).iter_mut().zip(&ws.c) {
+            *o = c;
+        }
+        for (o, &c) in batch.free.row_mut(s).iter_mut().zip(&ws.c) {
+            *o = c;
+        }
+        if let Some(d) = batch.derivatives.as_mut() {
+            ws.derivatives_into(&mut dbuf, id)?;
+            for (o, &v) in d.index_axis_mut(ndarray::Axis(0), s).iter_mut().zip(&dbuf) {
+                *o = v;
+            }
+        }
+    }
+    Ok(())
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::speciation::EquilibriumModel;
+    use approx::assert_relative_eq;
+
+    fn ml_model() -> ValidModel {
+        EquilibriumModel::from_toml_str(
+            r#"
+            components = [{ name = "M", absorbs = true }, { name = "L", absorbs = false }]
+            [[species]]
+            name = "ML"
+            stoichiometry = { M = 1, L = 1 }
+            absorbs = true
+            law = { kind = "fixed", log_beta = { value = 3.0 } }
+            "#,
+        )
+        .unwrap()
+        .check()
+        .unwrap()
+    }
+
+    #[test]
+    fn scaled_cholesky_solves_a_badly_scaled_spd_system() {
+        let model = ml_model();
+        let mut ws = Workspace::new(&model);
+        ws.load(&model, [0.0, 0.0, 3.0], [1.0, 1.0], "s").unwrap();
+        // c spanning 40 decades
+        let c = [1e-30, 1.0, 1e10];
+        assert!(ws.factor_jacobian(&c));
+        let h = ws.h.clone();
+        let mut b = [1.0, 2.0];
+        ws.solve_factored(&mut b);
+        let r0 = h[0] * b[0] + h[1] * b[1];
+        let r1 = h[2] * b[0] + h[3] * b[1];
+        assert_relative_eq!(r0, 1.0, max_relative = 1e-8);
+        assert_relative_eq!(r1, 2.0, max_relative = 1e-8);
+    }
+
+    #[test]
+    fn coordinate_sweeps_alone_solve_a_one_component_problem() {
+        let model = EquilibriumModel::from_toml_str(
+            r#"
+            components = [{ name = "A", absorbs = true }]
+            [[species]]
+            name = "A2"
+            stoichiometry = { A = 2 }
+            absorbs = true
+            law = { kind = "fixed", log_beta = { value = 4.0 } }
+            "#,
+        )
+        .unwrap()
+        .check()
+        .unwrap();
+        let mut ws = Workspace::new(&model);
+        ws.load(&model, [0.0, 4.0], [1e-2], "s").unwrap();
+        ws.u[0] = 5.0; // far too high a start
+        let sweeps = ws.coordinate_sweeps(1e-12);
+        assert_eq!(sweeps, 1);
+        // a + 2 K a² = T: a = (−1 + √(1 + 8KT)) / (4K), written stably as 2T/(1 + √(1 + 8KT))
+        let k = 1e4;
+        let a = 2.0 * 1e-2 / (1.0 + (1.0 + 8.0 * k * 1e-2f64).sqrt());
+        assert_relative_eq!(ws.c[0], a, max_relative = 1e-12);
+    }
+
+    #[test]
+    fn newton_from_an_absurd_start_still_converges() {
+        let model = ml_model();
+        let mut ws = Workspace::new(&model);
+        ws.load(&model, [0.0, 0.0, 40.0], [1e-9, 10.0], "s").unwrap();
+        ws.u = vec![300.0, -300.0];
+        let (ok, _, rel) = ws.newton(MAX_NEWTON);
+        assert!(ok, "residual {rel}");
+    }
+}
