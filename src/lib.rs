@@ -35,6 +35,7 @@ pub mod factor;
 pub mod preprocess;
 pub mod report;
 pub mod resolve;
+pub mod simulate;
 pub mod speciation;
 pub mod stats;
 #[doc(hidden)]

@@ -8,10 +8,12 @@
 pub mod csv_io;
 mod history;
 pub mod jcamp;
+mod load;
 mod location;
 mod spectra_set;
 
 pub use history::{Interpolation, ProcessingStep};
+pub use load::{DataFiles, SpectraSource, load};
 pub use location::Location;
 pub use spectra_set::{
     DEFAULT_PREPARATION_K, Sample, SampleRole, SpectraSet, SpectraSetError, Temperature, ZERO_CELSIUS_K,

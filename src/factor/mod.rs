@@ -179,14 +179,14 @@ pub(crate) fn check_rank_params(
             reason: "must lie strictly between 0 and 1",
         });
     }
-    if let Some(sigma) = known_noise {
-        if !(sigma.is_finite() && sigma > 0.0) {
-            return Err(FactorError::InvalidParameter {
-                name: "known_noise",
-                value: sigma.to_string(),
-                reason: "must be a positive, finite absorbance",
-            });
-        }
+    if let Some(sigma) = known_noise
+        && !(sigma.is_finite() && sigma > 0.0)
+    {
+        return Err(FactorError::InvalidParameter {
+            name: "known_noise",
+            value: sigma.to_string(),
+            reason: "must be a positive, finite absorbance",
+        });
     }
     Ok(())
 }

@@ -324,17 +324,17 @@ pub fn estimate_rank(
             chosen
         }
     };
-    if chosen > 0 {
-        if let (Some(s_last), Some(noise)) = (sv.get(chosen - 1), dec.noise_estimate(chosen)) {
-            let (r, c) = ((rows - chosen + 1) as f64, (cols - chosen + 1) as f64);
-            let ratio = s_last / (noise * (r.sqrt() + c.sqrt()));
-            if ratio < 10.0 {
-                reasoning.push(format!(
-                    "Caution: factor {chosen} is only {ratio:.1}× the noise edge σ̂·(√r + √c); \
+    if chosen > 0
+        && let (Some(s_last), Some(noise)) = (sv.get(chosen - 1), dec.noise_estimate(chosen))
+    {
+        let (r, c) = ((rows - chosen + 1) as f64, (cols - chosen + 1) as f64);
+        let ratio = s_last / (noise * (r.sqrt() + c.sqrt()));
+        if ratio < 10.0 {
+            reasoning.push(format!(
+                "Caution: factor {chosen} is only {ratio:.1}× the noise edge σ̂·(√r + √c); \
                      rank criteria are reliable above a signal-to-noise ratio of about 10 \
                      (Meloun et al., Anal. Chim. Acta 423 (2000) 51)."
-                ));
-            }
+            ));
         }
     }
     Ok(RankEstimate {

@@ -2,4 +2,5 @@
 //! atomically (temporary file, then rename).
 
 pub mod atomic;
+pub mod inspect;
 pub mod tables;

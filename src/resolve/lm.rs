@@ -12,7 +12,8 @@
 //! implementation and theory", Lecture Notes in Mathematics 630 (1978) 105). Steps are accepted
 //! when the gain ratio ρ = actual / predicted reduction is positive; λ is updated by Nielsen's
 //! rule (λ ← λ·max(⅓, 1 − (2ρ − 1)³) on success, λ ← λ·ν, ν ← 2ν on failure). Bounds are
-//! honoured by projecting each trial point onto the box.
+//! honoured by projecting each trial point onto the box. A trial point where the problem cannot
+//! be evaluated (its `apply` or `jacobian` returns an error) is treated as a rejected step.
 //!
 //! Termination is reported as a [`LmTermination`]: which convergence test fired, the iteration
 //! limit, or a stall (no decrease possible). The final state is returned in every case.
@@ -195,7 +196,7 @@ where
         let dmax = diag.iter().fold(0.0f64, |m, v| m.max(*v));
         diag.mapv_inplace(|d| d.max(1e-12 * dmax.max(f64::MIN_POSITIVE)));
         let n = x.len();
-        for _ in 0..60 {
+        for attempt in 0..60 {
             let sl = self.damping.sqrt();
             let damp = Array2::from_diag(&(&diag * sl));
             let a = concatenate(Axis(0), &[j.view(), damp.view()])
@@ -216,7 +217,17 @@ where
             let xnorm = x.dot(&x).sqrt();
             let snorm = step.dot(&step).sqrt();
             if snorm <= self.params.step_tolerance * (xnorm + self.params.step_tolerance) {
-                self.termination = LmTermination::Converged(ConvergenceTest::StepSize);
+                // A tiny first step is convergence; a step made tiny by damping after rejections
+                // is convergence only if the model predicts no further decrease worth having.
+                let jd = j.dot(&step);
+                let predicted = -(g.dot(&step) + 0.5 * jd.dot(&jd));
+                self.termination = if attempt == 0 {
+                    LmTermination::Converged(ConvergenceTest::StepSize)
+                } else if predicted <= self.params.cost_tolerance * cost.max(f64::MIN_POSITIVE) * 1e3 {
+                    LmTermination::Converged(ConvergenceTest::CostReduction)
+                } else {
+                    LmTermination::Stalled
+                };
                 return Ok((state.param(x).residuals(r).jacobian(j).cost(cost), None));
             }
             let r_trial = problem.apply(&trial)?;
@@ -233,7 +244,11 @@ where
             if rho > 1e-4 && actual > 0.0 {
                 self.damping *= (1.0f64 / 3.0).max(1.0 - (2.0 * rho - 1.0).powi(3));
                 self.nu = 2.0;
-                let j_trial = problem.jacobian(&trial)?;
+                let Ok(j_trial) = problem.jacobian(&trial) else {
+                    self.damping *= self.nu;
+                    self.nu *= 2.0;
+                    continue;
+                };
                 if actual <= self.params.cost_tolerance * cost {
                     self.termination = LmTermination::Converged(ConvergenceTest::CostReduction);
                 }

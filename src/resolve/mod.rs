@@ -12,3 +12,4 @@ pub mod linear;
 pub mod lm;
 
 pub use classic::ClassicError;
+pub mod hard;

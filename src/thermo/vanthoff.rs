@@ -99,14 +99,14 @@ impl KData {
                 found: self.values.len(),
             });
         }
-        if let Some(s) = &self.sigmas {
-            if s.len() != n {
-                return Err(ThermoError::LengthMismatch {
-                    what: "uncertainties (one per temperature)",
-                    expected: n,
-                    found: s.len(),
-                });
-            }
+        if let Some(s) = &self.sigmas
+            && s.len() != n
+        {
+            return Err(ThermoError::LengthMismatch {
+                what: "uncertainties (one per temperature)",
+                expected: n,
+                found: s.len(),
+            });
         }
         let mut ln_k = Vec::with_capacity(n);
         for (index, (&t, &v)) in self.temperatures_k.iter().zip(&self.values).enumerate() {
@@ -260,14 +260,14 @@ impl VanThoffParams {
     /// assert!(p.check().is_err());
     /// ```
     pub fn check(self) -> Result<ValidVanThoffParams, ThermoError> {
-        if let Some(theta) = self.heat_capacity.reference_k() {
-            if !(theta.is_finite() && theta > 0.0) {
-                return Err(ThermoError::InvalidParameter {
-                    name: "reference_temperature_k",
-                    value: theta,
-                    reason: "must be above absolute zero and finite",
-                });
-            }
+        if let Some(theta) = self.heat_capacity.reference_k()
+            && !(theta.is_finite() && theta > 0.0)
+        {
+            return Err(ThermoError::InvalidParameter {
+                name: "reference_temperature_k",
+                value: theta,
+                reason: "must be above absolute zero and finite",
+            });
         }
         Ok(ValidVanThoffParams(self))
     }

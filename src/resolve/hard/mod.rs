@@ -1,0 +1,840 @@
+//! The global model fit ("hard" resolution): the thermodynamic parameters of an equilibrium
+//! model fitted to all samples, series and wavelengths at once.
+//!
+//! ## Model
+//! With path lengths b, concentrations C(θ) from the speciation of each sample at its
+//! temperature, molar absorptivities S and, optionally, per-spectrum baselines:
+//!
+//! ```text
+//! D = X(θ)·Sᵀ + A·Wᵀ + E,   X(θ) = [diag(b)·C_abs, diag(b·x)·C_abs, diag(b·x²)·C_abs],  x = T − T_ε
+//! ```
+//!
+//! where the blocks after the first exist when the pure spectra depend on temperature
+//! (ε(T) = ε₀ + x·ε₁ + x²·ε₂, [`SpectraTemperature`]), W = [1, λ] holds the baseline shapes
+//! (offset, slope in λ; [`Baseline`]) and A the per-sample baseline coefficients.
+//!
+//! ## Variable projection
+//! For fixed θ the problem is linear in S and A. Eliminating them (Golub & Pereyra, SIAM J.
+//! Numer. Anal. 10 (1973) 413) leaves a problem in θ alone:
+//!
+//! ```text
+//! R(θ) = Q_X(θ) · D · (I − P_W),   Q_X = I − X X⁺,   P_W = W (WᵀW)⁻¹ Wᵀ
+//! ```
+//!
+//! minimised by Levenberg–Marquardt ([`super::lm`]) with the exact Golub–Pereyra Jacobian
+//! ∂R/∂θ_p = −[Q ∂X_p X⁺ D̃ + (X⁺)ᵀ ∂X_pᵀ R], ∂X/∂θ from the speciation derivatives
+//! (implicit differentiation of the mass balance). The approach is that of hard-model global
+//! analysis of multiwavelength equilibrium data (Gampp, Maeder, Meyer, Zuberbühler, Talanta 32
+//! (1985) 95; Maeder & Zuberbühler, Anal. Chem. 62 (1990) 2220).
+//!
+//! ## Data reduction (exact)
+//! D̃ = D(I − P_W) is computed once and replaced by G = D̃·V, where V (wavelengths × r) holds the
+//! right singular vectors of D̃ with non-zero singular values (r ≤ number of samples). Because
+//! every row of R and of ∂R/∂θ lies in the row space of D̃, ‖R‖ and JᵀJ are unchanged: the
+//! reduction is exact, not an approximation, and after it each iteration costs nothing per
+//! wavelength. It is always safe with uniform weights; truncating to fewer singular vectors
+//! than the rank of D̃ would not be, and is not done.
+//!
+//! ## Baselines and spectra
+//! An offset common to all samples in proportion to one species' concentration cannot be told
+//! apart from a flat component of that species' spectrum. The fit takes baseline coefficients
+//! orthogonal to the concentration profiles (A = Q_X D W (WᵀW)⁻¹), which makes S = (X⁺ D)ᵀ: any
+//! such common part is attributed to the spectra.
+//!
+//! ## Uncertainties
+//! Cov(θ) = σ²(JᵀJ)⁻¹ with σ² = RSS/ν, ν = (samples × wavelengths) − (number of θ) −
+//! (number of linear parameters), or σ from a known noise level. For Gaussian noise this is the
+//! Cramér–Rao bound with the spectra profiled out. Standard errors of ε are conditional on θ:
+//! σ²·diag((XᵀX)⁻¹) at each wavelength.
+
+mod problem;
+
+use super::lm::{self, LmParams, LmTermination};
+use crate::data::SpectraSet;
+use crate::speciation::{
+    Derivatives, FormationLaw, SpeciationBatch, SpeciationError, StandardQuantities, ValidModel,
+};
+use ndarray::{Array1, Array2, Axis, s};
+use ndarray_linalg::SVD;
+use problem::{Projection, VarproProblem, sum_sq};
+use serde::{Deserialize, Serialize};
+use std::sync::Mutex;
+use thiserror::Error;
+
+/// Why a global fit could not be run.
+#[derive(Debug, Clone, PartialEq, Error)]
+#[non_exhaustive]
+pub enum HardFitError {
+    /// The model does not fit the data set (missing totals, …).
+    #[error(transparent)]
+    Model(#[from] SpeciationError),
+    /// No parameter is free.
+    #[error("the model has no free parameter to fit (every law parameter is fixed)")]
+    NoFreeParameters,
+    /// No species has a spectrum to fit.
+    #[error("no absorbing species with an unknown spectrum: nothing to resolve")]
+    NoAbsorbingSpecies,
+    /// More unknowns than data.
+    #[error("too few data: {data} values for {unknowns} unknowns")]
+    TooFewData {
+        /// Number of data values used.
+        data: usize,
+        /// Number of unknowns (θ, spectra, baselines).
+        unknowns: usize,
+    },
+    /// Invalid settings.
+    #[error("invalid fit settings: {0}")]
+    Settings(String),
+    /// The solver failed (e.g. speciation did not converge at some trial θ).
+    #[error("the fit failed: {0}")]
+    Solver(String),
+}
+
+/// How pure spectra depend on temperature.
+#[derive(Debug, Clone, Copy, PartialEq, Serialize, Deserialize)]
+#[serde(rename_all = "snake_case", tag = "order")]
+pub enum SpectraTemperature {
+    /// ε(λ) independent of T.
+    Constant,
+    /// ε₀ + (T − T_ε)·ε₁.
+    Linear {
+        /// T_ε, K.
+        reference_k: f64,
+    },
+    /// ε₀ + (T − T_ε)·ε₁ + (T − T_ε)²·ε₂; needed when bands shift with T.
+    Quadratic {
+        /// T_ε, K.
+        reference_k: f64,
+    },
+}
+
+impl SpectraTemperature {
+    /// Polynomial order (0, 1, 2).
+    pub fn order(self) -> usize {
+        match self {
+            Self::Constant => 0,
+            Self::Linear { .. } => 1,
+            Self::Quadratic { .. } => 2,
+        }
+    }
+
+    /// T_ε, K (298.15 for constant spectra, where it is unused).
+    pub fn reference_k(self) -> f64 {
+        match self {
+            Self::Constant => 298.15,
+            Self::Linear { reference_k } | Self::Quadratic { reference_k } => reference_k,
+        }
+    }
+}
+
+/// Per-spectrum baseline terms eliminated with the spectra.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Default, Serialize, Deserialize)]
+#[serde(rename_all = "snake_case")]
+pub enum Baseline {
+    /// No baseline terms.
+    #[default]
+    None,
+    /// A constant offset per spectrum.
+    Offset,
+    /// Offset and slope in λ per spectrum.
+    OffsetAndSlope,
+}
+
+/// How the totals at the measurement temperature are obtained from those prepared.
+#[derive(Debug, Clone, PartialEq, Default, Serialize, Deserialize)]
+#[serde(rename_all = "snake_case")]
+pub enum ConcentrationBasis {
+    /// Use the totals as given (already at the measurement temperature, or expansion ignored).
+    #[default]
+    AsGiven,
+    /// Scale by the solvent density ratio ρ(T)/ρ(T_prep) (thermal expansion of the solution).
+    ThermalExpansion(crate::thermo::SolventDensity),
+    /// Scale by the ratio of explicit factors given per sample (same order as the set).
+    Factors(Vec<f64>),
+}
+
+/// Settings of the global fit.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[serde(default, deny_unknown_fields)]
+pub struct HardFitParams {
+    /// Temperature dependence of the pure spectra.
+    pub spectra_temperature: SpectraTemperature,
+    /// Baseline terms per spectrum.
+    pub baseline: Baseline,
+    /// Concentration basis (thermal expansion).
+    pub concentrations: ConcentrationBasis,
+    /// Known noise σ (absorbance units): fixes the scale of the covariance instead of RSS/ν.
+    pub known_noise: Option<f64>,
+    /// Number of starting points tried per free log β (odd; 1 = start from the model values).
+    pub start_grid: usize,
+    /// Half-width of the start grid in log β units.
+    pub start_span: f64,
+    /// Solver settings.
+    pub solver: LmParams,
+}
+
+impl Default for HardFitParams {
+    fn default() -> Self {
+        Self {
+            spectra_temperature: SpectraTemperature::Constant,
+            baseline: Baseline::None,
+            concentrations: ConcentrationBasis::AsGiven,
+            known_noise: None,
+            start_grid: 5,
+            start_span: 2.0,
+            solver: LmParams::default(),
+        }
+    }
+}
+
+/// One free parameter of the fit.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct FreeParameter {
+    /// Model species index.
+    pub species: usize,
+    /// Index of the parameter in the species' law.
+    pub parameter: usize,
+    /// Species name.
+    pub species_name: String,
+    /// Parameter name (e.g. `log_beta_ref`, `dh_ref`).
+    pub name: String,
+    /// Unit.
+    pub unit: String,
+}
+
+/// A fitted parameter with its standard error.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct FittedParameter {
+    /// Which parameter.
+    pub parameter: FreeParameter,
+    /// Fitted value.
+    pub value: f64,
+    /// Standard error √Cov_pp.
+    pub standard_error: f64,
+}
+
+/// ΔG°, ΔH°, ΔS°, ΔCp° of one species at its reference temperature, with covariance.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct SpeciesThermodynamics {
+    /// Species name.
+    pub species: String,
+    /// The standard quantities with covariance.
+    pub standard: StandardQuantities,
+}
+
+/// The result of a global fit. Returned for every run that got as far as the solver, converged
+/// or not: check [`HardFit::termination`].
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct HardFit {
+    /// Fitted parameters with standard errors.
+    pub parameters: Vec<FittedParameter>,
+    /// Covariance of the free parameters.
+    pub covariance: Array2<f64>,
+    /// Correlation matrix of the free parameters.
+    pub correlation: Array2<f64>,
+    /// Standard thermodynamic quantities of every species with a free law parameter.
+    pub thermodynamics: Vec<SpeciesThermodynamics>,
+    /// Names of the species whose spectra were fitted (columns of `spectra`, per order block).
+    pub absorbing_species: Vec<String>,
+    /// Pure spectra ε (wavelengths × absorbing species × (order + 1) blocks: ε₀ block first).
+    pub spectra: Array2<f64>,
+    /// Standard errors of `spectra`, conditional on θ.
+    pub spectra_standard_errors: Array2<f64>,
+    /// Concentrations of every model species, samples × species, mol/L.
+    pub concentrations: Array2<f64>,
+    /// Model species names (columns of `concentrations`).
+    pub species: Vec<String>,
+    /// Residual sum of squares.
+    pub rss: f64,
+    /// Degrees of freedom ν.
+    pub degrees_of_freedom: usize,
+    /// Residual standard deviation √(RSS/ν), absorbance units.
+    pub residual_sd: f64,
+    /// σ used for the covariance (known noise or the residual standard deviation).
+    pub sigma: f64,
+    /// Singular values of the design X at the solution (condition of the concentrations).
+    pub design_singular_values: Vec<f64>,
+    /// Numerical rank of X; below the number of columns, some spectra are not determined.
+    pub design_rank: usize,
+    /// Solver iterations.
+    pub iterations: u64,
+    /// Why the solver stopped.
+    pub termination: LmTermination,
+    /// Starting points scored before the solver runs.
+    pub starts_tried: usize,
+    /// Parameters that ended on a bound (the fit is then constrained, and their standard errors
+    /// are not meaningful).
+    pub at_bounds: Vec<String>,
+}
+
+impl HardFit {
+    /// Value and standard error of a parameter by species and parameter name.
+    pub fn parameter(&self, species: &str, name: &str) -> Option<&FittedParameter> {
+        self.parameters
+            .iter()
+            .find(|p| p.parameter.species_name == species && p.parameter.name == name)
+    }
+}
+
+/// Free parameters of a model, in a fixed order (species order, then law parameter order).
+pub fn free_parameters(model: &ValidModel) -> Vec<FreeParameter> {
+    let mut out = Vec::new();
+    for (k, sp) in model.species().iter().enumerate() {
+        let names = sp.law.parameter_names();
+        let units = sp.law.parameter_units();
+        for (j, p) in sp.law.parameters().iter().enumerate() {
+            if !p.fixed {
+                out.push(FreeParameter {
+                    species: k,
+                    parameter: j,
+                    species_name: sp.name.clone(),
+                    name: names[j].to_string(),
+                    unit: units[j].to_string(),
+                });
+            }
+        }
+    }
+    out
+}
+
+/// Totals at the measurement temperature (samples × model components).
+fn measurement_totals(
+    set: &SpectraSet,
+    model: &ValidModel,
+    basis: &ConcentrationBasis,
+) -> Result<Array2<f64>, HardFitError> {
+    model.check_totals(set.components())?;
+    let ns = set.n_samples();
+    let mut totals = Array2::zeros((ns, model.n_components()));
+    for (i, sample) in set.samples().iter().enumerate() {
+        let factor = match basis {
+            ConcentrationBasis::AsGiven => 1.0,
+            ConcentrationBasis::ThermalExpansion(density) => density
+                .concentration_factor(sample.temperature_k, sample.preparation_temperature_k)
+                .map_err(|e| HardFitError::Settings(format!("sample '{}': {e}", sample.id)))?,
+            ConcentrationBasis::Factors(f) => *f
+                .get(i)
+                .ok_or_else(|| HardFitError::Settings(format!("{} factors for {ns} samples", f.len())))?,
+        };
+        for (c, name) in model.component_names().iter().enumerate() {
+            totals[[i, c]] = sample.totals_m[name] * factor;
+        }
+    }
+    Ok(totals)
+}
+
+/// Baseline shapes W (wavelengths × nb), λ centred and scaled for conditioning.
+fn baseline_shapes(wavelengths_nm: &Array1<f64>, baseline: Baseline) -> Option<Array2<f64>> {
+    let nw = wavelengths_nm.len();
+    let mid = 0.5 * (wavelengths_nm[0] + wavelengths_nm[nw - 1]);
+    let half = (0.5 * (wavelengths_nm[nw - 1] - wavelengths_nm[0])).max(f64::MIN_POSITIVE);
+    match baseline {
+        Baseline::None => None,
+        Baseline::Offset => Some(Array2::ones((nw, 1))),
+        Baseline::OffsetAndSlope => Some(Array2::from_shape_fn((nw, 2), |(j, k)| {
+            if k == 0 {
+                1.0
+            } else {
+                (wavelengths_nm[j] - mid) / half
+            }
+        })),
+    }
+}
+
+/// D(I − P_W): removes the baseline shapes from every row.
+fn remove_baseline_shapes(d: &Array2<f64>, w: &Array2<f64>) -> Array2<f64> {
+    // Orthonormal basis of W by thin SVD (2 columns at most).
+    let (u, _, _) = w.svd(true, false).unwrap_or((None, Array1::zeros(0), None));
+    match u {
+        Some(u) => {
+            let q = u.slice(s![.., ..w.ncols()]).to_owned();
+            d - &d.dot(&q).dot(&q.t())
+        }
+        None => d.clone(),
+    }
+}
+
+/// The exact reduction G = D̃·V onto the row space of D̃.
+fn reduce(d_tilde: &Array2<f64>) -> Result<Array2<f64>, HardFitError> {
+    let (u, s, _) = d_tilde
+        .svd(true, false)
+        .map_err(|e| HardFitError::Solver(format!("SVD of the data failed: {e}")))?;
+    let u = u.ok_or_else(|| HardFitError::Solver("SVD of the data returned no vectors".into()))?;
+    // D̃V = UΣ: keep singular values above rounding level (exact subspace).
+    let smax = s.iter().fold(0.0f64, |m, v| m.max(*v));
+    let tol = smax * (d_tilde.nrows().max(d_tilde.ncols()) as f64) * f64::EPSILON;
+    let r = s.iter().filter(|&&v| v > tol).count().max(1);
+    let mut g = u.slice(s![.., ..r]).to_owned();
+    for (k, mut col) in g.axis_iter_mut(Axis(1)).enumerate() {
+        col *= s[k];
+    }
+    Ok(g)
+}
+
+/// Sets up the variable-projection problem: totals, baseline removal, exact reduction.
+/// Returns the problem and the number of linear parameters eliminated.
+fn build_problem<'a>(
+    set: &SpectraSet,
+    model: &'a ValidModel,
+    free: &'a [FreeParameter],
+    params: &HardFitParams,
+) -> Result<(VarproProblem<'a>, usize), HardFitError> {
+    if params.start_grid == 0 || params.start_grid.is_multiple_of(2) {
+        return Err(HardFitError::Settings(format!(
+            "start_grid must be odd (got {})",
+            params.start_grid
+        )));
+    }
+    if let Some(n) = params.known_noise
+        && !(n.is_finite() && n > 0.0)
+    {
+        return Err(HardFitError::Settings(format!(
+            "known_noise must be positive (got {n})"
+        )));
+    }
+    if free.is_empty() {
+        return Err(HardFitError::NoFreeParameters);
+    }
+    let absorbing: Vec<usize> = model
+        .species()
+        .iter()
+        .enumerate()
+        .filter(|(_, s)| s.optics == crate::speciation::Optics::Absorbing && s.known_spectrum.is_none())
+        .map(|(k, _)| k)
+        .collect();
+    if absorbing.is_empty() {
+        return Err(HardFitError::NoAbsorbingSpecies);
+    }
+    let totals = measurement_totals(set, model, &params.concentrations)?;
+    let d = set.absorbance();
+    let (ns, nw) = d.dim();
+    let w = baseline_shapes(set.wavelengths_nm(), params.baseline);
+    let nb = w.as_ref().map_or(0, |w| w.ncols());
+    let d_tilde = match &w {
+        Some(w) => remove_baseline_shapes(d, w),
+        None => d.clone(),
+    };
+    let reduced = reduce(&d_tilde)?;
+    drop(d_tilde);
+    let m = absorbing.len() * (params.spectra_temperature.order() + 1);
+    let n_linear = m * nw + nb * ns - m * nb;
+    let unknowns = free.len() + n_linear;
+    let n_data = ns * nw;
+    if unknowns >= n_data {
+        return Err(HardFitError::TooFewData {
+            data: n_data,
+            unknowns,
+        });
+    }
+    let problem = VarproProblem {
+        model,
+        free,
+        temperatures_k: set.temperatures_k(),
+        totals,
+        sample_ids: set.samples().iter().map(|s| s.id.clone()).collect(),
+        path_cm: set.path_lengths_cm(),
+        absorbing,
+        spectra_temperature: params.spectra_temperature,
+        reduced,
+        batch: Mutex::new(SpeciationBatch::new(model, ns, Derivatives::Skip)),
+    };
+    Ok((problem, n_linear))
+}
+
+/// Fits the free parameters of `model` to all samples of `set`.
+///
+/// # Errors
+/// [`HardFitError`] when the fit cannot be set up (missing totals, nothing free, too few data)
+/// or when the solver fails outright. A fit that runs but does not converge is returned as
+/// `Ok` with its [`HardFit::termination`] saying so.
+pub fn fit(set: &SpectraSet, model: &ValidModel, params: &HardFitParams) -> Result<HardFit, HardFitError> {
+    let free = free_parameters(model);
+    let (problem, n_linear) = build_problem(set, model, &free, params)?;
+    let nw = set.n_wavelengths();
+    let start0: Array1<f64> = free
+        .iter()
+        .map(|fp| model.species()[fp.species].law.parameters()[fp.parameter].value)
+        .collect();
+    let (lower, upper) = bounds(&free, params);
+    let starts = start_points(&problem, &free, &start0, params)?;
+    let starts_tried = starts.len();
+    let mut best: Option<lm::LmOutcome> = None;
+    let mut last_error = None;
+    for start in starts.into_iter().take(3) {
+        let solver = LmParams {
+            lower: lower.clone(),
+            upper: upper.clone(),
+            ..params.solver.clone()
+        };
+        match lm::minimise(&problem, start, solver) {
+            Ok(out) => {
+                if best.as_ref().is_none_or(|b| out.cost < b.cost) {
+                    best = Some(out);
+                }
+            }
+            Err(e) => last_error = Some(e.to_string()),
+        }
+    }
+    let out =
+        best.ok_or_else(|| HardFitError::Solver(last_error.unwrap_or_else(|| "no start converged".into())))?;
+    let mut fit = summarise(
+        set,
+        model,
+        &problem,
+        &free,
+        out,
+        params,
+        nw,
+        n_linear,
+        starts_tried,
+    )?;
+    fit.at_bounds = free
+        .iter()
+        .zip(&fit.parameters)
+        .enumerate()
+        .filter(|(p, (_, fp))| {
+            let tol = 1e-9 * (upper[*p] - lower[*p]).abs().min(1e9);
+            fp.value <= lower[*p] + tol || fp.value >= upper[*p] - tol
+        })
+        .map(|(_, (f, _))| format!("{} {}", f.species_name, f.name))
+        .collect();
+    Ok(fit)
+}
+
+/// Bounds: the user's when given, otherwise the physically sensible range of each kind of
+/// parameter — log β within the range the speciation solver supports (−30 … 40), |ΔH°| ≤ 1000
+/// kJ/mol, |ΔCp°| ≤ 10⁵ J K⁻¹ mol⁻¹, |dΔCp°/dT| ≤ 10⁴ J K⁻² mol⁻¹.
+fn bounds(free: &[FreeParameter], params: &HardFitParams) -> (Vec<f64>, Vec<f64>) {
+    let default = |fp: &FreeParameter| -> (f64, f64) {
+        match fp.name.as_str() {
+            n if n.starts_with("log_beta") => (-30.0, 40.0),
+            "dh_ref" => (-1e6, 1e6),
+            "dcp" => (-1e5, 1e5),
+            "dcp_slope" => (-1e4, 1e4),
+            _ => (f64::NEG_INFINITY, f64::INFINITY),
+        }
+    };
+    let lower = free
+        .iter()
+        .enumerate()
+        .map(|(p, fp)| params.solver.lower.get(p).copied().unwrap_or(default(fp).0))
+        .collect();
+    let upper = free
+        .iter()
+        .enumerate()
+        .map(|(p, fp)| params.solver.upper.get(p).copied().unwrap_or(default(fp).1))
+        .collect();
+    (lower, upper)
+}
+
+/// Largest number of grid points scored when choosing starting points.
+const MAX_START_POINTS: usize = 2000;
+
+/// Candidate starts, best first: a grid around the model's values over every free log β
+/// (`start_grid` points spanning ± `start_span`) and every free ΔH° (the model value and
+/// ± 15, ± 40 kJ/mol). ΔH° must be part of the grid: at ΔH° = 0 all samples of one series have
+/// the same composition, and with fewer series than absorbing species the residual does not
+/// depend on log β at all. Grids larger than [`MAX_START_POINTS`] are subsampled with a fixed
+/// seed. Points are ranked by the cost (no Jacobian needed).
+fn start_points(
+    problem: &VarproProblem<'_>,
+    free: &[FreeParameter],
+    start0: &Array1<f64>,
+    params: &HardFitParams,
+) -> Result<Vec<Array1<f64>>, HardFitError> {
+    use argmin::core::Operator;
+    use rand::Rng;
+    let g = params.start_grid;
+    let axes: Vec<Vec<f64>> = free
+        .iter()
+        .enumerate()
+        .map(|(p, fp)| {
+            let x0 = start0[p];
+            if g > 1 && fp.name.starts_with("log_beta") {
+                (0..g)
+                    .map(|k| x0 - params.start_span + 2.0 * params.start_span * k as f64 / (g - 1) as f64)
+                    .collect()
+            } else if g > 1 && fp.name == "dh_ref" {
+                vec![x0, x0 - 40e3, x0 - 15e3, x0 + 15e3, x0 + 40e3]
+            } else {
+                vec![x0]
+            }
+        })
+        .collect();
+    let total = axes
+        .iter()
+        .try_fold(1usize, |acc, a| acc.checked_mul(a.len()))
+        .unwrap_or(usize::MAX);
+    let point = |mut code: usize| -> Array1<f64> {
+        axes.iter()
+            .map(|a| {
+                let v = a[code % a.len()];
+                code /= a.len();
+                v
+            })
+            .collect()
+    };
+    let mut candidates = vec![start0.clone()];
+    if total <= MAX_START_POINTS {
+        candidates.extend((0..total).map(point));
+    } else {
+        let mut rng = crate::testing::rng(0x5EED);
+        candidates.extend((0..MAX_START_POINTS).map(|_| point(rng.random_range(0..total))));
+    }
+    let mut scored: Vec<(f64, Array1<f64>)> = candidates
+        .into_iter()
+        .filter_map(|x| {
+            let r = problem.apply(&x).ok()?;
+            let c = r.dot(&r);
+            c.is_finite().then_some((c, x))
+        })
+        .collect();
+    if scored.is_empty() {
+        return Err(HardFitError::Solver(
+            "the speciation failed at every starting point".into(),
+        ));
+    }
+    scored.sort_by(|a, b| a.0.total_cmp(&b.0));
+    Ok(scored.into_iter().map(|(_, x)| x).collect())
+}
+
+#[allow(clippy::too_many_arguments)]
+fn summarise(
+    set: &SpectraSet,
+    model: &ValidModel,
+    problem: &VarproProblem<'_>,
+    free: &[FreeParameter],
+    out: lm::LmOutcome,
+    params: &HardFitParams,
+    nw: usize,
+    n_linear: usize,
+    starts_tried: usize,
+) -> Result<HardFit, HardFitError> {
+    let ns = set.n_samples();
+    let theta = out.param.clone();
+    let (c, _) = problem
+        .speciate(&theta, false)
+        .map_err(|e| HardFitError::Solver(e.to_string()))?;
+    let proj: Projection = problem
+        .project(problem.design(c.view()))
+        .map_err(|e| HardFitError::Solver(e.to_string()))?;
+    let r = problem.residual_matrix(&proj);
+    let rss = sum_sq(r.view());
+    let dof = ns * nw - free.len() - n_linear;
+    let residual_sd = (rss / dof as f64).sqrt();
+    let sigma = params.known_noise.unwrap_or(residual_sd);
+    // Cov = σ² (JᵀJ)⁻¹ by SVD of J (robust to near-singularity).
+    let np = free.len();
+    let mut cov = Array2::zeros((np, np));
+    if out.jacobian.nrows() > 0
+        && let Ok((_, sv, Some(vt))) = out.jacobian.svd(false, true)
+    {
+        let smax = sv.iter().fold(0.0f64, |m, v| m.max(*v));
+        for k in 0..sv.len().min(np) {
+            if sv[k] > smax * 1e-12 {
+                let vk = vt.row(k);
+                for a in 0..np {
+                    for b in 0..np {
+                        cov[[a, b]] += sigma * sigma * vk[a] * vk[b] / (sv[k] * sv[k]);
+                    }
+                }
+            } else {
+                for a in 0..np {
+                    cov[[a, a]] = f64::INFINITY;
+                }
+            }
+        }
+    }
+    let se: Vec<f64> = (0..np).map(|p| cov[[p, p]].max(0.0).sqrt()).collect();
+    let correlation = Array2::from_shape_fn((np, np), |(a, b)| {
+        let denom = se[a] * se[b];
+        if denom > 0.0 && denom.is_finite() {
+            cov[[a, b]] / denom
+        } else if a == b {
+            1.0
+        } else {
+            0.0
+        }
+    });
+    let parameters = free
+        .iter()
+        .zip(theta.iter())
+        .zip(se.iter())
+        .map(|((fp, &v), &e)| FittedParameter {
+            parameter: fp.clone(),
+            value: v,
+            standard_error: e,
+        })
+        .collect();
+    // Thermodynamics per species with a free parameter.
+    let mut thermodynamics = Vec::new();
+    let values = problem.law_values(&theta);
+    for (k, sp) in model.species().iter().enumerate() {
+        let idx: Vec<usize> = (0..np).filter(|&p| free[p].species == k).collect();
+        if idx.is_empty() {
+            continue;
+        }
+        // [ΔG°, ΔH°, ΔS°, ΔCp°] at θ and their covariance J_q Cov J_qᵀ over this species' free θ.
+        let (q, jac) = sp.law.standard_with(&values[k]);
+        let nlaw = sp.law.n_parameters();
+        let mut qcov = [[0.0; 4]; 4];
+        for (a, row) in qcov.iter_mut().enumerate() {
+            for (b, out) in row.iter_mut().enumerate() {
+                *out = idx
+                    .iter()
+                    .flat_map(|&i| idx.iter().map(move |&j| (i, j)))
+                    .map(|(i, j)| {
+                        jac[a * nlaw + free[i].parameter] * cov[[i, j]] * jac[b * nlaw + free[j].parameter]
+                    })
+                    .sum();
+            }
+        }
+        let standard = StandardQuantities {
+            t_ref_k: sp.law.reference_temperature_k(),
+            dg_j_mol: q[0],
+            dh_j_mol: q[1],
+            ds_j_k_mol: q[2],
+            dcp_j_k_mol: q[3],
+            covariance: qcov,
+        };
+        thermodynamics.push(SpeciesThermodynamics {
+            species: sp.name.clone(),
+            standard,
+        });
+    }
+    // Spectra from the full data: S = (X⁺ D)ᵀ, standard errors σ √diag((XᵀX)⁻¹).
+    let spectra = proj.pinv.dot(set.absorbance()).t().to_owned();
+    let xtx_inv_diag: Vec<f64> = (0..proj.x.ncols())
+        .map(|a| proj.pinv.row(a).dot(&proj.pinv.row(a)))
+        .collect();
+    let spectra_standard_errors =
+        Array2::from_shape_fn((nw, proj.x.ncols()), |(_, a)| sigma * xtx_inv_diag[a].sqrt());
+    Ok(HardFit {
+        parameters,
+        covariance: cov,
+        correlation,
+        thermodynamics,
+        absorbing_species: problem
+            .absorbing
+            .iter()
+            .map(|&k| model.species()[k].name.clone())
+            .collect(),
+        spectra,
+        spectra_standard_errors,
+        concentrations: c,
+        species: model.species().iter().map(|s| s.name.clone()).collect(),
+        rss,
+        degrees_of_freedom: dof,
+        residual_sd,
+        sigma,
+        design_singular_values: proj.singular_values.to_vec(),
+        design_rank: proj.rank,
+        iterations: out.iterations,
+        termination: out.termination,
+        starts_tried,
+        at_bounds: Vec::new(),
+    })
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::simulate::{Band, Noise, PureSpectrum, SeriesPlan, SimulationPlan, simulate};
+    use crate::speciation::EquilibriumModel;
+    use argmin::core::{Jacobian, Operator};
+
+    pub(crate) fn two_complex_model(lb1: f64, dh1: f64, lb2: f64, dh2: f64) -> ValidModel {
+        EquilibriumModel::from_toml_str(&format!(
+            r#"
+            components = [{{ name = "M", absorbs = true }}, {{ name = "X", absorbs = false }}]
+            [[species]]
+            name = "MX"
+            stoichiometry = {{ M = 1, X = 1 }}
+            absorbs = true
+            law = {{ kind = "van_t_hoff", log_beta_ref = {{ value = {lb1} }}, dh_ref = {{ value = {dh1} }} }}
+            [[species]]
+            name = "MX2"
+            stoichiometry = {{ M = 1, X = 2 }}
+            absorbs = true
+            law = {{ kind = "van_t_hoff", log_beta_ref = {{ value = {lb2} }}, dh_ref = {{ value = {dh2} }} }}
+            "#
+        ))
+        .unwrap()
+        .check()
+        .unwrap()
+    }
+
+    fn small_plan() -> SimulationPlan {
+        let band = |c: f64, w: f64, h: f64| Band {
+            centre_nm: c,
+            width_nm: w,
+            height: h,
+            shift_nm_per_k: 0.0,
+        };
+        SimulationPlan {
+            seed: 1,
+            first_nm: 400.0,
+            last_nm: 700.0,
+            step_nm: 10.0,
+            temperatures_c: vec![10.0, 30.0, 50.0, 70.0],
+            path_cm: 1.0,
+            preparation_temperature_c: 25.0,
+            thermal_expansion: false,
+            noise: Noise::None,
+            offset_sd_au: 0.0,
+            slope_sd_au_per_100nm: 0.0,
+            series: [0.3, 3.0]
+                .iter()
+                .map(|&x| SeriesPlan {
+                    label: format!("X{x}"),
+                    totals_m: [("M".into(), 0.02), ("X".into(), x)].into(),
+                })
+                .collect(),
+            spectra: vec![
+                PureSpectrum {
+                    species: "M".into(),
+                    bands: vec![band(420.0, 30.0, 6.0)],
+                },
+                PureSpectrum {
+                    species: "MX".into(),
+                    bands: vec![band(500.0, 35.0, 18.0)],
+                },
+                PureSpectrum {
+                    species: "MX2".into(),
+                    bands: vec![band(600.0, 40.0, 40.0)],
+                },
+            ],
+        }
+    }
+
+    #[test]
+    fn the_residual_vanishes_at_the_truth_and_the_jacobian_matches_finite_differences() {
+        let model = two_complex_model(0.4, 12_000.0, -0.2, 35_000.0);
+        let sim = simulate(&model, &small_plan()).unwrap();
+        let free = free_parameters(&model);
+        let (problem, _) = build_problem(&sim.set, &model, &free, &HardFitParams::default()).unwrap();
+        let truth = ndarray::array![0.4, 12_000.0, -0.2, 35_000.0];
+        let r = problem.apply(&truth).unwrap();
+        assert!(
+            r.dot(&r).sqrt() < 1e-10,
+            "residual norm at the truth: {}",
+            r.dot(&r).sqrt()
+        );
+        let theta = ndarray::array![0.7, 5_000.0, 0.3, 20_000.0];
+        let j = problem.jacobian(&theta).unwrap();
+        for p in 0..theta.len() {
+            let h = 1e-6 * theta[p].abs().max(1.0);
+            let mut tp = theta.clone();
+            tp[p] += h;
+            let mut tm = theta.clone();
+            tm[p] -= h;
+            let fd = (problem.apply(&tp).unwrap() - problem.apply(&tm).unwrap()) / (2.0 * h);
+            let err = (&fd - &j.column(p)).iter().fold(0.0f64, |m, v| m.max(v.abs()));
+            let scale = fd.iter().fold(0.0f64, |m, v| m.max(v.abs()));
+            assert!(
+                err <= 1e-5 * scale + 1e-14,
+                "parameter {p}: max |J − FD| = {err}, scale {scale}"
+            );
+        }
+    }
+}

@@ -1,0 +1,273 @@
+//! The variable-projection problem: residuals and Jacobian of the global fit as functions of the
+//! thermodynamic parameters θ only (argmin [`Operator`] and [`Jacobian`]).
+
+use super::{FreeParameter, SpectraTemperature};
+use crate::speciation::{Derivatives, FormationLaw, SpeciationBatch, Start, ValidModel, speciate_all_into};
+use argmin::core::{Error as ArgminError, Jacobian, Operator};
+use ndarray::{Array1, Array2, ArrayView2};
+use ndarray_linalg::SVD;
+use std::sync::Mutex;
+
+/// Everything fixed during a fit, and a warm-start speciation cache.
+pub(crate) struct VarproProblem<'a> {
+    pub model: &'a ValidModel,
+    /// Free parameters θ: which species and which law parameter each one is.
+    pub free: &'a [FreeParameter],
+    /// Sample temperatures, K.
+    pub temperatures_k: Array1<f64>,
+    /// Totals at the measurement temperature, samples × model components, mol/L.
+    pub totals: Array2<f64>,
+    /// Sample ids (for speciation errors).
+    pub sample_ids: Vec<String>,
+    /// Path lengths b, cm.
+    pub path_cm: Array1<f64>,
+    /// Model species indices whose spectra are fitted (absorbing, no known spectrum).
+    pub absorbing: Vec<usize>,
+    /// Polynomial order of ε(T) and its reference temperature.
+    pub spectra_temperature: SpectraTemperature,
+    /// The reduced data G = D (I − P_W) V (samples × r), exact in the retained subspace.
+    pub reduced: Array2<f64>,
+    /// Warm-start speciation buffer.
+    pub batch: Mutex<SpeciationBatch>,
+}
+
+/// The linear design X = [diag(b)·C_abs, diag(b·x)·C_abs, diag(b·x²)·C_abs] and the pieces of
+/// its pseudo-inverse needed by the projection.
+pub(crate) struct Projection {
+    /// X, samples × m.
+    pub x: Array2<f64>,
+    /// Left singular vectors of X spanning its range, samples × rank.
+    pub u: Array2<f64>,
+    /// X⁺ (m × samples).
+    pub pinv: Array2<f64>,
+    /// Singular values of X (all).
+    pub singular_values: Array1<f64>,
+    /// Numerical rank used.
+    pub rank: usize,
+}
+
+impl VarproProblem<'_> {
+    /// Law parameter values per species with θ substituted.
+    pub fn law_values(&self, theta: &Array1<f64>) -> Vec<Vec<f64>> {
+        let mut values: Vec<Vec<f64>> = self
+            .model
+            .species()
+            .iter()
+            .map(|s| s.law.parameters().iter().map(|p| p.value).collect())
+            .collect();
+        for (p, fp) in self.free.iter().enumerate() {
+            values[fp.species][fp.parameter] = theta[p];
+        }
+        values
+    }
+
+    /// log₁₀ β (samples × species) at θ and, optionally, ∂ log₁₀ β_k(T_i)/∂θ_p as
+    /// samples × parameters (each θ belongs to one species).
+    pub fn log_betas(&self, theta: &Array1<f64>, with_gradient: bool) -> (Array2<f64>, Option<Array2<f64>>) {
+        let values = self.law_values(theta);
+        let ns = self.temperatures_k.len();
+        let nsp = self.model.n_species();
+        let mut lb = Array2::zeros((ns, nsp));
+        let mut grad = with_gradient.then(|| Array2::zeros((ns, self.free.len())));
+        let mut g = Vec::new();
+        for (k, sp) in self.model.species().iter().enumerate() {
+            let np = sp.law.n_parameters();
+            g.resize(np, 0.0);
+            for (i, &t) in self.temperatures_k.iter().enumerate() {
+                lb[[i, k]] = if grad.is_some() {
+                    sp.law.log10_beta_gradient_with(&values[k], t, &mut g)
+                } else {
+                    sp.law.log10_beta_with(&values[k], t)
+                };
+                if let Some(grad) = grad.as_mut() {
+                    for (p, fp) in self.free.iter().enumerate() {
+                        if fp.species == k {
+                            grad[[i, p]] = g[fp.parameter];
+                        }
+                    }
+                }
+            }
+        }
+        (lb, grad)
+    }
+
+    /// Speciation at θ (concentrations, and ∂C/∂θ as one samples × species matrix per θ).
+    pub fn speciate(
+        &self,
+        theta: &Array1<f64>,
+        derivatives: bool,
+    ) -> Result<(Array2<f64>, Vec<Array2<f64>>), ArgminError> {
+        let (lb, grad) = self.log_betas(theta, derivatives);
+        let mut batch = self.batch.lock().map_err(|_| -> ArgminError {
+            argmin::argmin_error!(PotentialBug, "speciation cache poisoned")
+        })?;
+        let want = if derivatives {
+            Derivatives::LogBeta
+        } else {
+            Derivatives::Skip
+        };
+        if batch.derivatives.is_some() != derivatives {
+            let warm = std::mem::replace(&mut *batch, SpeciationBatch::new(self.model, lb.nrows(), want));
+            batch.free.assign(&warm.free);
+        }
+        // Warm start from the previous θ; if that fails, cold; if that fails too, clear the cache
+        // so a failed trial point cannot poison later evaluations.
+        let warm = speciate_all_into(
+            self.model,
+            lb.view(),
+            self.totals.view(),
+            &self.sample_ids,
+            Start::Warm,
+            &mut batch,
+        );
+        if warm.is_err() {
+            batch.free.fill(0.0);
+            if let Err(e) = speciate_all_into(
+                self.model,
+                lb.view(),
+                self.totals.view(),
+                &self.sample_ids,
+                Start::Cold,
+                &mut batch,
+            ) {
+                batch.free.fill(0.0);
+                return Err(argmin::argmin_error!(InvalidParameter, e.to_string()));
+            }
+        }
+        let c = batch.concentrations.clone();
+        let mut dc = Vec::new();
+        if let (Some(grad), Some(d)) = (grad, batch.derivatives.as_ref()) {
+            let (ns, nsp) = c.dim();
+            for p in 0..self.free.len() {
+                let k = self.free[p].species;
+                let mut m = Array2::zeros((ns, nsp));
+                for i in 0..ns {
+                    let gik = grad[[i, p]];
+                    for s in 0..nsp {
+                        m[[i, s]] = d[[i, s, k]] * gik;
+                    }
+                }
+                dc.push(m);
+            }
+        }
+        Ok((c, dc))
+    }
+
+    /// The design matrix X from a concentration matrix C (or its derivative: X is linear in C).
+    pub fn design(&self, c: ArrayView2<f64>) -> Array2<f64> {
+        let ns = c.nrows();
+        let na = self.absorbing.len();
+        let order = self.spectra_temperature.order();
+        let mut x = Array2::zeros((ns, na * (order + 1)));
+        for i in 0..ns {
+            let dt = self.temperatures_k[i] - self.spectra_temperature.reference_k();
+            let mut w = self.path_cm[i];
+            for o in 0..=order {
+                for (a, &k) in self.absorbing.iter().enumerate() {
+                    x[[i, o * na + a]] = w * c[[i, k]];
+                }
+                w *= dt;
+            }
+        }
+        x
+    }
+
+    /// Thin SVD of X with a numerical rank and X⁺.
+    pub fn project(&self, x: Array2<f64>) -> Result<Projection, ArgminError> {
+        let (u, s, vt) = x
+            .svd(true, true)
+            .map_err(|e| -> ArgminError { argmin::argmin_error!(InvalidParameter, e.to_string()) })?;
+        let (Some(u), Some(vt)) = (u, vt) else {
+            return Err(argmin::argmin_error!(PotentialBug, "SVD returned no vectors"));
+        };
+        let smax = s.iter().fold(0.0f64, |m, v| m.max(*v));
+        let tol = smax * (x.nrows().max(x.ncols()) as f64) * f64::EPSILON;
+        let rank = s.iter().filter(|&&v| v > tol).count();
+        let u = u.slice(ndarray::s![.., ..rank]).to_owned();
+        let mut pinv = Array2::zeros((x.ncols(), x.nrows()));
+        for k in 0..rank {
+            let vk = vt.row(k);
+            let uk = u.column(k);
+            for a in 0..x.ncols() {
+                for i in 0..x.nrows() {
+                    pinv[[a, i]] += vk[a] * uk[i] / s[k];
+                }
+            }
+        }
+        Ok(Projection {
+            x,
+            u,
+            pinv,
+            singular_values: s,
+            rank,
+        })
+    }
+
+    /// Residual matrix R = Q_X G (samples × r).
+    pub fn residual_matrix(&self, p: &Projection) -> Array2<f64> {
+        let utg = p.u.t().dot(&self.reduced);
+        &self.reduced - &p.u.dot(&utg)
+    }
+}
+
+/// Row-major flattening (residual order: sample by sample).
+fn flatten(m: Array2<f64>) -> Array1<f64> {
+    m.iter().copied().collect()
+}
+
+impl Operator for VarproProblem<'_> {
+    type Param = Array1<f64>;
+    type Output = Array1<f64>;
+
+    fn apply(&self, theta: &Array1<f64>) -> Result<Array1<f64>, ArgminError> {
+        let (c, _) = self.speciate(theta, false)?;
+        let p = self.project(self.design(c.view()))?;
+        Ok(flatten(self.residual_matrix(&p)))
+    }
+}
+
+impl Jacobian for VarproProblem<'_> {
+    type Param = Array1<f64>;
+    type Jacobian = Array2<f64>;
+
+    /// Golub–Pereyra: ∂R/∂θ_p = −[Q ∂X_p X⁺ G + (X⁺)ᵀ ∂X_pᵀ R], R = Q G.
+    fn jacobian(&self, theta: &Array1<f64>) -> Result<Array2<f64>, ArgminError> {
+        let (c, dc) = self.speciate(theta, true)?;
+        let p = self.project(self.design(c.view()))?;
+        let r = self.residual_matrix(&p);
+        let st = p.pinv.dot(&self.reduced); // X⁺G (m × r): spectra in the reduced basis
+        let n = r.len();
+        let mut jac = Array2::zeros((n, self.free.len()));
+        for (q, dcq) in dc.iter().enumerate() {
+            let dx = self.design(dcq.view());
+            let a = dx.dot(&st);
+            let qa = &a - &p.u.dot(&p.u.t().dot(&a));
+            let b = p.pinv.t().dot(&dx.t().dot(&r));
+            let col = -(qa + b);
+            jac.column_mut(q).assign(&flatten(col));
+        }
+        Ok(jac)
+    }
+}
+
+// The solver borrows the problem so the fit can use it again after the run.
+impl Operator for &VarproProblem<'_> {
+    type Param = Array1<f64>;
+    type Output = Array1<f64>;
+    fn apply(&self, theta: &Array1<f64>) -> Result<Array1<f64>, ArgminError> {
+        (**self).apply(theta)
+    }
+}
+
+impl Jacobian for &VarproProblem<'_> {
+    type Param = Array1<f64>;
+    type Jacobian = Array2<f64>;
+    fn jacobian(&self, theta: &Array1<f64>) -> Result<Array2<f64>, ArgminError> {
+        (**self).jacobian(theta)
+    }
+}
+
+/// Sum of squares of a matrix.
+pub(crate) fn sum_sq(m: ArrayView2<f64>) -> f64 {
+    m.iter().map(|v| v * v).sum()
+}

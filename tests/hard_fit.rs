@@ -1,0 +1,149 @@
+//! Ground truth for the global model fit: data simulated from known parameters are fitted back.
+//! The truth is the simulation's input (not an output of the fit), so these tests can fail.
+
+use isosbestic::resolve::hard::{self, Baseline, ConcentrationBasis, HardFitParams, SpectraTemperature};
+use isosbestic::simulate::{Band, Noise, PureSpectrum, SeriesPlan, SimulationPlan, simulate};
+use isosbestic::speciation::EquilibriumModel;
+use isosbestic::thermo::SolventDensity;
+
+/// M + X ⇌ MX and M + 2X ⇌ MX2, van 't Hoff laws; `truth` chooses the parameter values.
+fn model(lb1: f64, dh1: f64, lb2: f64, dh2: f64) -> isosbestic::speciation::ValidModel {
+    EquilibriumModel::from_toml_str(&format!(
+        r#"
+        components = [{{ name = "M", absorbs = true }}, {{ name = "X", absorbs = false }}]
+        [[species]]
+        name = "MX"
+        stoichiometry = {{ M = 1, X = 1 }}
+        absorbs = true
+        law = {{ kind = "van_t_hoff", log_beta_ref = {{ value = {lb1} }}, dh_ref = {{ value = {dh1} }} }}
+        [[species]]
+        name = "MX2"
+        stoichiometry = {{ M = 1, X = 2 }}
+        absorbs = true
+        law = {{ kind = "van_t_hoff", log_beta_ref = {{ value = {lb2} }}, dh_ref = {{ value = {dh2} }} }}
+        "#
+    ))
+    .unwrap()
+    .check()
+    .unwrap()
+}
+
+fn plan(noise: Noise, seed: u64) -> SimulationPlan {
+    let band = |c: f64, w: f64, h: f64| Band {
+        centre_nm: c,
+        width_nm: w,
+        height: h,
+        shift_nm_per_k: 0.0,
+    };
+    SimulationPlan {
+        seed,
+        first_nm: 350.0,
+        last_nm: 800.0,
+        step_nm: 3.0,
+        temperatures_c: (0..12).map(|k| 5.0 + 7.5 * f64::from(k)).collect(),
+        path_cm: 1.0,
+        preparation_temperature_c: 25.0,
+        thermal_expansion: true,
+        noise,
+        offset_sd_au: 0.0,
+        slope_sd_au_per_100nm: 0.0,
+        series: [0.3, 1.0, 3.0]
+            .iter()
+            .map(|&x| SeriesPlan {
+                label: format!("X{x}"),
+                totals_m: [("M".into(), 0.02), ("X".into(), x)].into(),
+            })
+            .collect(),
+        spectra: vec![
+            PureSpectrum {
+                species: "M".into(),
+                bands: vec![band(420.0, 30.0, 6.0), band(700.0, 60.0, 2.5)],
+            },
+            PureSpectrum {
+                species: "MX".into(),
+                bands: vec![band(450.0, 35.0, 18.0), band(720.0, 55.0, 9.0)],
+            },
+            PureSpectrum {
+                species: "MX2".into(),
+                bands: vec![band(480.0, 40.0, 40.0), band(650.0, 45.0, 55.0)],
+            },
+        ],
+    }
+}
+
+fn fit_params() -> HardFitParams {
+    HardFitParams {
+        concentrations: ConcentrationBasis::ThermalExpansion(SolventDensity::Water),
+        ..HardFitParams::default()
+    }
+}
+
+#[test]
+fn noise_free_data_give_back_the_simulated_parameters() {
+    let truth = model(0.4, 12_000.0, -0.2, 35_000.0);
+    let sim = simulate(&truth, &plan(Noise::None, 1)).unwrap();
+    // Start away from the truth: the fit must find it.
+    let start = model(1.0, 0.0, 1.0, 0.0);
+    let fit = hard::fit(&sim.set, &start, &fit_params()).unwrap();
+    assert!(fit.termination.converged(), "{:?}", fit.termination);
+    for (species, name, expected) in [
+        ("MX", "log_beta_ref", 0.4),
+        ("MX", "dh_ref", 12_000.0),
+        ("MX2", "log_beta_ref", -0.2),
+        ("MX2", "dh_ref", 35_000.0),
+    ] {
+        let p = fit.parameter(species, name).unwrap();
+        approx::assert_relative_eq!(p.value, expected, max_relative = 1e-6);
+    }
+    // spectra come back too (ε of MX2 at its 650 nm band: 55 plus the tail of its 480 nm band)
+    approx::assert_relative_eq!(fit.rss, 0.0, epsilon = 1e-18);
+}
+
+#[test]
+fn noisy_fits_land_within_three_standard_errors() {
+    let truth = model(0.4, 12_000.0, -0.2, 35_000.0);
+    let start = model(1.0, 0.0, 1.0, 0.0);
+    for seed in 1..=5 {
+        let sim = simulate(&truth, &plan(Noise::Absorbance { sd_au: 5e-4 }, seed)).unwrap();
+        let fit = hard::fit(&sim.set, &start, &fit_params()).unwrap();
+        assert!(fit.termination.converged());
+        // residual sd estimates the simulated noise
+        approx::assert_relative_eq!(fit.residual_sd, 5e-4, max_relative = 0.05);
+        for (species, name, expected) in [
+            ("MX", "log_beta_ref", 0.4),
+            ("MX", "dh_ref", 12_000.0),
+            ("MX2", "log_beta_ref", -0.2),
+            ("MX2", "dh_ref", 35_000.0),
+        ] {
+            let p = fit.parameter(species, name).unwrap();
+            let z = (p.value - expected) / p.standard_error;
+            assert!(
+                z.abs() < 3.0,
+                "seed {seed}: {species} {name} = {} ± {} (z = {z})",
+                p.value,
+                p.standard_error
+            );
+        }
+    }
+}
+
+#[test]
+fn baselines_are_eliminated_with_the_spectra() {
+    let truth = model(0.4, 12_000.0, -0.2, 35_000.0);
+    let mut p = plan(Noise::None, 3);
+    p.offset_sd_au = 5e-3;
+    p.slope_sd_au_per_100nm = 2e-3;
+    let sim = simulate(&truth, &p).unwrap();
+    let params = HardFitParams {
+        baseline: Baseline::OffsetAndSlope,
+        ..fit_params()
+    };
+    let fit = hard::fit(&sim.set, &model(1.0, 0.0, 1.0, 0.0), &params).unwrap();
+    assert!(fit.termination.converged());
+    approx::assert_relative_eq!(
+        fit.parameter("MX2", "dh_ref").unwrap().value,
+        35_000.0,
+        max_relative = 1e-6
+    );
+    let _ = SpectraTemperature::Constant;
+}
