@@ -33,6 +33,40 @@ pub enum Error {
     /// A classic two-wavelength estimate failed.
     #[error(transparent)]
     Classic(#[from] crate::resolve::ClassicError),
+    /// The global fit could not be run.
+    #[error(transparent)]
+    HardFit(#[from] crate::resolve::hard::HardFitError),
+    /// A simulation could not be run.
+    #[error(transparent)]
+    Simulation(#[from] crate::simulate::SimulationError),
+    /// An equilibrium model file is invalid.
+    #[error("{path}: {source}")]
+    InModel {
+        /// The model file.
+        path: std::path::PathBuf,
+        /// What is wrong.
+        source: crate::speciation::SpeciationError,
+    },
+    /// An input file could not be read.
+    #[error("cannot read {path}: {source}")]
+    Input {
+        /// The file.
+        path: std::path::PathBuf,
+        /// The I/O error.
+        source: std::io::Error,
+    },
+    /// An output would overwrite a file it must not.
+    #[error("refusing to write {path}: {reason}")]
+    WouldOverwrite {
+        /// The file.
+        path: std::path::PathBuf,
+        /// Why not.
+        reason: &'static str,
+    },
+    /// Settings given by the caller are unusable (e.g. a run configuration file that does not
+    /// parse, a missing required option).
+    #[error("{0}")]
+    Usage(String),
     /// Writing an output failed.
     #[error("cannot write {path}: {source}")]
     Output {

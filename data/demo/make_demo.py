@@ -122,6 +122,14 @@ def main():
                 fh.write(f"{wl[k]:.1f} {ys}\n")
             fh.write("##END=\n")
 
+    # An invented K(T) table for the van 't Hoff demo: log10 beta1 of NiBr+ at 8 temperatures
+    # with sigma = 0.01 (as a lab might have from earlier measurements).
+    with open(os.path.join(HERE, "k_table.csv"), "w") as fh:
+        fh.write("temperature_C,log10_K,sigma_log10_K\n")
+        for t_c in np.linspace(10.0, 80.0, 8):
+            v = log_beta("NiBr", t_c + 273.15) + 0.01 * rng.standard_normal()
+            fh.write(f"{t_c:.1f},{v:.4f},0.01\n")
+
     truth = {"scenario": "invented: Ni(II)-bromide in LiClO4 brine (demo only)",
              "T_ref_K": T_REF, "law": "van 't Hoff", "parameters": TRUTH,
              "noise_au": noise_au, "offset_sd_au": 2e-3,

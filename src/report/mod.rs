@@ -2,5 +2,6 @@
 //! atomically (temporary file, then rename).
 
 pub mod atomic;
+pub mod fit;
 pub mod inspect;
 pub mod tables;

@@ -4,9 +4,9 @@ use clap::Args;
 use isosbestic::data::{DataFiles, Interpolation, SpectraSource};
 use std::path::PathBuf;
 
-/// Where the data set is.
+/// Where the spectra are (one of the two).
 #[derive(Debug, Args)]
-#[group(id = "spectra_source", required = true, multiple = false)]
+#[group(id = "spectra_source", required = false, multiple = false)]
 pub struct SpectraArgs {
     /// Spectra table (CSV): wavelength_nm column, then one column per sample id.
     #[arg(long, value_name = "CSV", group = "spectra_source")]
@@ -23,26 +23,41 @@ pub struct DataArgs {
     pub source: SpectraArgs,
     /// Samples table (CSV): sample_id, series, temperature_K or temperature_C, path_cm, <component>_M.
     #[arg(long, value_name = "CSV")]
-    pub samples: PathBuf,
+    pub samples: Option<PathBuf>,
     /// Use monotone cubic instead of linear interpolation when JCAMP-DX grids differ.
     #[arg(long)]
     pub cubic: bool,
 }
 
 impl DataArgs {
-    pub fn files(&self) -> DataFiles {
-        let spectra = match &self.source.spectra {
-            Some(csv) => SpectraSource::Csv(csv.clone()),
-            None => SpectraSource::Jcamp(self.source.jcamp.clone()),
+    /// True when any data flag was given.
+    pub fn given(&self) -> bool {
+        self.source.spectra.is_some() || !self.source.jcamp.is_empty() || self.samples.is_some()
+    }
+
+    /// The data files, or a usage error naming what is missing.
+    pub fn files(&self) -> isosbestic::Result<DataFiles> {
+        let spectra = match (&self.source.spectra, self.source.jcamp.is_empty()) {
+            (Some(csv), _) => SpectraSource::Csv(csv.clone()),
+            (None, false) => SpectraSource::Jcamp(self.source.jcamp.clone()),
+            (None, true) => {
+                return Err(crate::usage(
+                    "give the spectra: --spectra <CSV> or --jcamp <JDX>...",
+                ));
+            }
         };
-        DataFiles {
+        let samples = self
+            .samples
+            .clone()
+            .ok_or_else(|| crate::usage("give the samples table: --samples <CSV>"))?;
+        Ok(DataFiles {
             spectra,
-            samples: self.samples.clone(),
+            samples,
             interpolation: if self.cubic {
                 Interpolation::MonotoneCubic
             } else {
                 Interpolation::Linear
             },
-        }
+        })
     }
 }

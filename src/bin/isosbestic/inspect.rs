@@ -34,7 +34,7 @@ pub struct InspectArgs {
 }
 
 pub fn run(args: &InspectArgs) -> isosbestic::Result<ExitCode> {
-    let set = load(&args.data.files())?;
+    let set = load(&args.data.files()?)?;
     let mut params = InspectParams::default();
     if let Some(w) = &args.window {
         params.preprocess.window = Some([w[0], w[1]]);

@@ -4,8 +4,11 @@
 //! Exit codes: 0 success; 1 the run finished but did not converge or a check failed;
 //! 2 bad input or usage.
 
+mod fit;
 mod input;
 mod inspect;
+mod simulate;
+mod vanthoff;
 
 use clap::{Parser, Subcommand};
 use std::process::ExitCode;
@@ -33,6 +36,17 @@ struct Cli {
 enum Command {
     /// Summarise a data set: ranges, saturation, singular values, noise, rank, evolving factors.
     Inspect(inspect::InspectArgs),
+    /// Global fit of an equilibrium model's ΔH°, ΔS° (ΔCp°) to all spectra at once.
+    Fit(fit::FitArgs),
+    /// Fit ln K(T) points (van 't Hoff, optional ΔCp°).
+    Vanthoff(vanthoff::VanthoffArgs),
+    /// Simulate a data set from a model and a plan (for planning experiments).
+    Simulate(simulate::SimulateArgs),
+}
+
+/// A usage error from a subcommand (exit code 2), carried as a library error.
+pub fn usage(message: impl Into<String>) -> isosbestic::Error {
+    isosbestic::Error::Usage(message.into())
 }
 
 fn main() -> ExitCode {
@@ -49,6 +63,9 @@ fn main() -> ExitCode {
     };
     let outcome = match cli.command {
         Command::Inspect(args) => inspect::run(&args),
+        Command::Fit(args) => fit::run(&args),
+        Command::Vanthoff(args) => vanthoff::run(&args),
+        Command::Simulate(args) => simulate::run(&args),
     };
     match outcome {
         Ok(code) => code,

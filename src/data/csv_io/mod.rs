@@ -36,10 +36,12 @@
 
 mod dialect;
 mod error;
+mod ktable;
 mod samples;
 mod spectra;
 
 pub use error::CsvError;
+pub use ktable::{KTable, parse_k_table, read_k_table};
 pub(crate) use samples::{ColumnRole, classify_column};
 pub use samples::{
     PREP_TEMPERATURE_C_COLUMN, PREP_TEMPERATURE_K_COLUMN, SamplesTable, TEMPERATURE_C_COLUMN,

@@ -1,0 +1,157 @@
+//! `isosbestic fit`.
+
+use crate::input::DataArgs;
+use clap::{Args, ValueEnum};
+use isosbestic::report::fit::{FitRunConfig, run_fit, write_fit_outputs};
+use isosbestic::resolve::hard::{Baseline, ConcentrationBasis, SpectraTemperature};
+use isosbestic::thermo::SolventDensity;
+use std::path::PathBuf;
+use std::process::ExitCode;
+
+#[derive(Debug, Clone, Copy, ValueEnum)]
+enum BaselineArg {
+    None,
+    Offset,
+    OffsetAndSlope,
+}
+
+#[derive(Debug, Clone, Copy, ValueEnum)]
+enum SpectraTArg {
+    Constant,
+    Linear,
+    Quadratic,
+}
+
+#[derive(Debug, Clone, Copy, ValueEnum)]
+enum ExpansionArg {
+    /// Totals are used as given.
+    None,
+    /// Totals scale with the density of water between preparation and measurement.
+    Water,
+}
+
+#[derive(Debug, Args)]
+#[command(after_help = "Examples:\n  \
+    isosbestic fit --config data/demo/fit.toml --out results/demo\n  \
+    isosbestic fit --spectra s.csv --samples t.csv --model m.toml --baseline offset --expansion water --out results\n\n\
+    A configuration file holds every option (see data/demo/fit.toml); flags given on the command\n\
+    line override it. Outputs go to --out; existing outputs are kept unless --force is given,\n\
+    and inputs are never overwritten. Exit code 1 when the fit did not converge.")]
+pub struct FitArgs {
+    /// Run configuration file (TOML) with data, model, preprocessing and fit settings.
+    #[arg(long, value_name = "TOML")]
+    config: Option<PathBuf>,
+    /// Spectra, samples table (required unless given in --config).
+    #[command(flatten)]
+    data: DataArgs,
+    /// Equilibrium model file (TOML or JSON).
+    #[arg(long, value_name = "FILE")]
+    model: Option<PathBuf>,
+    /// Output folder.
+    #[arg(long, value_name = "DIR")]
+    out: PathBuf,
+    /// Overwrite outputs of an earlier run in the same folder.
+    #[arg(long)]
+    force: bool,
+    /// Per-spectrum baseline terms eliminated with the spectra.
+    #[arg(long, value_enum)]
+    baseline: Option<BaselineArg>,
+    /// Temperature dependence of the pure spectra (polynomial in T − reference).
+    #[arg(long, value_enum)]
+    spectra_temperature: Option<SpectraTArg>,
+    /// Reference temperature of the spectra polynomial, °C (default 25).
+    #[arg(long, value_name = "CELSIUS")]
+    spectra_reference_c: Option<f64>,
+    /// Thermal expansion of the solutions between preparation and measurement.
+    #[arg(long, value_enum)]
+    expansion: Option<ExpansionArg>,
+    /// Known noise (AU): fixes the scale of the standard errors instead of the residuals.
+    #[arg(long, value_name = "AU")]
+    noise: Option<f64>,
+    /// Keep only wavelengths in this window (nm).
+    #[arg(long, num_args = 2, value_names = ["MIN_NM", "MAX_NM"])]
+    window: Option<Vec<f64>>,
+    /// Print the report as JSON instead of a summary.
+    #[arg(long)]
+    json: bool,
+    /// Print nothing but errors.
+    #[arg(long)]
+    quiet: bool,
+}
+
+fn config_from(args: &FitArgs) -> isosbestic::Result<FitRunConfig> {
+    let mut config = match &args.config {
+        Some(path) => {
+            let text = std::fs::read_to_string(path).map_err(|source| isosbestic::Error::Input {
+                path: path.clone(),
+                source,
+            })?;
+            toml::from_str::<FitRunConfig>(&text)
+                .map_err(|e| crate::usage(format!("{}: {e}", path.display())))?
+        }
+        None => {
+            let model = args
+                .model
+                .clone()
+                .ok_or_else(|| crate::usage("--model is required without --config"))?;
+            FitRunConfig {
+                data: args.data.files()?,
+                model,
+                preprocess: Default::default(),
+                fit: Default::default(),
+            }
+        }
+    };
+    if args.data.given() {
+        config.data = args.data.files()?;
+    }
+    if let Some(m) = &args.model {
+        config.model = m.clone();
+    }
+    if let Some(b) = args.baseline {
+        config.fit.baseline = match b {
+            BaselineArg::None => Baseline::None,
+            BaselineArg::Offset => Baseline::Offset,
+            BaselineArg::OffsetAndSlope => Baseline::OffsetAndSlope,
+        };
+    }
+    let reference_k = args.spectra_reference_c.map_or(298.15, |c| c + 273.15);
+    if let Some(o) = args.spectra_temperature {
+        config.fit.spectra_temperature = match o {
+            SpectraTArg::Constant => SpectraTemperature::Constant,
+            SpectraTArg::Linear => SpectraTemperature::Linear { reference_k },
+            SpectraTArg::Quadratic => SpectraTemperature::Quadratic { reference_k },
+        };
+    }
+    if let Some(e) = args.expansion {
+        config.fit.concentrations = match e {
+            ExpansionArg::None => ConcentrationBasis::AsGiven,
+            ExpansionArg::Water => ConcentrationBasis::ThermalExpansion(SolventDensity::Water),
+        };
+    }
+    if let Some(n) = args.noise {
+        config.fit.known_noise = Some(n);
+    }
+    if let Some(w) = &args.window {
+        config.preprocess.window = Some([w[0], w[1]]);
+    }
+    Ok(config)
+}
+
+pub fn run(args: &FitArgs) -> isosbestic::Result<ExitCode> {
+    let config = config_from(args)?;
+    let (report, _) = run_fit(&config)?;
+    write_fit_outputs(&args.out, &report, args.force)?;
+    if args.json {
+        let doc = isosbestic::report::tables::to_json_document("fit-report", &report);
+        println!("{}", serde_json::to_string_pretty(&doc).unwrap_or_default());
+    } else if !args.quiet {
+        print!("{report}");
+        println!("\nwrote {}", args.out.display());
+    }
+    Ok(if report.fit.termination.converged() {
+        ExitCode::SUCCESS
+    } else {
+        ExitCode::from(crate::EXIT_CHECK_FAILED)
+    })
+}

@@ -1,0 +1,475 @@
+//! A complete global-fit run: configuration, the report (everything needed to reproduce and
+//! judge the fit) and its files.
+
+use crate::data::{DataFiles, SpectraSet, load};
+use crate::preprocess::{PreprocessParams, PreprocessSummary};
+use crate::report::tables::{Table, format_float, write_json};
+use crate::resolve::hard::{self, HardFit, HardFitParams};
+use crate::speciation::{EquilibriumModel, ValidModel};
+use crate::{Error, Result};
+use serde::{Deserialize, Serialize};
+use sha2::{Digest, Sha256};
+use std::fmt;
+use std::path::{Path, PathBuf};
+
+/// Everything a fit run needs, as one serde structure (a run configuration file in TOML).
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct FitRunConfig {
+    /// The data files.
+    pub data: DataFiles,
+    /// The equilibrium model file (TOML or JSON, by extension).
+    pub model: PathBuf,
+    /// Preprocessing applied before the fit.
+    #[serde(default)]
+    pub preprocess: PreprocessParams,
+    /// Fit settings.
+    #[serde(default)]
+    pub fit: HardFitParams,
+}
+
+/// One input file with its SHA-256 checksum, so a report names exactly what it was made from.
+#[derive(Debug, Clone, PartialEq, Eq, Serialize, Deserialize)]
+pub struct InputFile {
+    /// Path as given.
+    pub path: PathBuf,
+    /// SHA-256 of the contents, lower-case hex.
+    pub sha256: String,
+    /// Size in bytes.
+    pub bytes: u64,
+}
+
+/// Reads a file and computes its checksum.
+///
+/// # Errors
+/// [`Error::Input`] naming the file.
+pub fn checksum(path: &Path) -> Result<InputFile> {
+    let bytes = std::fs::read(path).map_err(|source| Error::Input {
+        path: path.to_path_buf(),
+        source,
+    })?;
+    let digest = Sha256::digest(&bytes);
+    Ok(InputFile {
+        path: path.to_path_buf(),
+        sha256: digest.iter().map(|b| format!("{b:02x}")).collect(),
+        bytes: bytes.len() as u64,
+    })
+}
+
+/// Reads and checks an equilibrium model file (`.json` as JSON, anything else as TOML).
+///
+/// # Errors
+/// [`Error::Input`] if unreadable; [`Error::Speciation`] with the parser's line and column or
+/// the validation problem.
+pub fn read_model(path: &Path) -> Result<ValidModel> {
+    let text = std::fs::read_to_string(path).map_err(|source| Error::Input {
+        path: path.to_path_buf(),
+        source,
+    })?;
+    let model = if path.extension().is_some_and(|e| e.eq_ignore_ascii_case("json")) {
+        EquilibriumModel::from_json_str(&text)
+    } else {
+        EquilibriumModel::from_toml_str(&text)
+    }
+    .map_err(|e| Error::InModel {
+        path: path.to_path_buf(),
+        source: e,
+    })?;
+    model.check().map_err(|e| Error::InModel {
+        path: path.to_path_buf(),
+        source: e,
+    })
+}
+
+/// A finding about a fit that a user should read (not an error: the fit ran).
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[serde(tag = "kind", rename_all = "snake_case")]
+#[non_exhaustive]
+pub enum Diagnostic {
+    /// The solver did not converge.
+    NotConverged {
+        /// Why it stopped.
+        termination: String,
+    },
+    /// A parameter ended on its bound.
+    AtBound {
+        /// Which parameter.
+        parameter: String,
+    },
+    /// Two parameters are almost fully correlated: the data cannot separate them.
+    HighCorrelation {
+        /// First parameter.
+        first: String,
+        /// Second parameter.
+        second: String,
+        /// Correlation coefficient.
+        correlation: f64,
+    },
+    /// The concentration design is rank deficient: some spectra are not determined.
+    RankDeficientDesign {
+        /// Numerical rank.
+        rank: usize,
+        /// Columns (absorbing species × spectra temperature terms).
+        columns: usize,
+    },
+    /// The residual standard deviation is well above the noise level estimated from the data
+    /// alone: the model misses something (a species, ΔCp°, band changes with T, baselines).
+    LackOfFit {
+        /// Residual standard deviation of the fit, AU.
+        residual_sd: f64,
+        /// Noise estimated by factor analysis at the rank the model implies, AU.
+        noise_estimate: f64,
+    },
+}
+
+impl fmt::Display for Diagnostic {
+    fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
+        match self {
+            Self::NotConverged { termination } => write!(f, "the fit did not converge ({termination})"),
+            Self::AtBound { parameter } => {
+                write!(
+                    f,
+                    "{parameter} ended on its bound; its standard error is not meaningful"
+                )
+            }
+            Self::HighCorrelation {
+                first,
+                second,
+                correlation,
+            } => write!(
+                f,
+                "{first} and {second} are correlated ({correlation:+.4}): the data barely separate them"
+            ),
+            Self::RankDeficientDesign { rank, columns } => write!(
+                f,
+                "the concentration profiles span only {rank} of {columns} dimensions: some pure spectra are not determined"
+            ),
+            Self::LackOfFit {
+                residual_sd,
+                noise_estimate,
+            } => write!(
+                f,
+                "residual sd {residual_sd:.3e} AU is {:.1}× the noise level {noise_estimate:.3e} AU found by factor analysis: the model misses something",
+                residual_sd / noise_estimate
+            ),
+        }
+    }
+}
+
+/// Everything a fit run produced, serialisable as `report.json`.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct FitReport {
+    /// Software name and version.
+    pub software: String,
+    /// The inputs with checksums.
+    pub inputs: Vec<InputFile>,
+    /// The full configuration of the run.
+    pub config: FitRunConfig,
+    /// Sample ids (rows of the concentration table).
+    pub sample_ids: Vec<String>,
+    /// Sample series labels.
+    pub series: Vec<String>,
+    /// Sample temperatures, K.
+    pub temperatures_k: Vec<f64>,
+    /// Wavelengths of the fitted data, nm.
+    pub wavelengths_nm: Vec<f64>,
+    /// What preprocessing did.
+    pub preprocessing: PreprocessSummary,
+    /// The fit.
+    pub fit: HardFit,
+    /// Findings to read.
+    pub diagnostics: Vec<Diagnostic>,
+}
+
+/// Runs a fit from a configuration: read, preprocess, fit, diagnose.
+///
+/// # Errors
+/// Unreadable or invalid inputs, invalid settings, or a fit that cannot be set up. A fit that
+/// runs but does not converge is returned with a [`Diagnostic::NotConverged`].
+pub fn run_fit(config: &FitRunConfig) -> Result<(FitReport, SpectraSet)> {
+    let mut inputs = config
+        .data
+        .paths()
+        .iter()
+        .map(|p| checksum(p))
+        .collect::<Result<Vec<_>>>()?;
+    inputs.push(checksum(&config.model)?);
+    let model = read_model(&config.model)?;
+    let set = load(&config.data)?;
+    let (set, preprocessing) = config.preprocess.clone().check()?.apply(&set)?;
+    let fit = hard::fit(&set, &model, &config.fit)?;
+    let diagnostics = diagnose(&set, &fit, &config.fit);
+    let report = FitReport {
+        software: format!("isosbestic {}", env!("CARGO_PKG_VERSION")),
+        inputs,
+        config: config.clone(),
+        sample_ids: set.samples().iter().map(|s| s.id.clone()).collect(),
+        series: set.samples().iter().map(|s| s.series.clone()).collect(),
+        temperatures_k: set.temperatures_k().to_vec(),
+        wavelengths_nm: set.wavelengths_nm().to_vec(),
+        preprocessing,
+        fit,
+        diagnostics,
+    };
+    Ok((report, set))
+}
+
+/// Diagnostics of a finished fit.
+pub fn diagnose(set: &SpectraSet, fit: &HardFit, params: &HardFitParams) -> Vec<Diagnostic> {
+    let mut out = Vec::new();
+    if !fit.termination.converged() {
+        out.push(Diagnostic::NotConverged {
+            termination: format!("{:?}", fit.termination),
+        });
+    }
+    for p in &fit.at_bounds {
+        out.push(Diagnostic::AtBound { parameter: p.clone() });
+    }
+    let n = fit.parameters.len();
+    for a in 0..n {
+        for b in a + 1..n {
+            let r = fit.correlation[[a, b]];
+            if r.abs() > 0.99 {
+                let name = |k: usize| {
+                    format!(
+                        "{} {}",
+                        fit.parameters[k].parameter.species_name, fit.parameters[k].parameter.name
+                    )
+                };
+                out.push(Diagnostic::HighCorrelation {
+                    first: name(a),
+                    second: name(b),
+                    correlation: r,
+                });
+            }
+        }
+    }
+    let columns = fit.design_singular_values.len();
+    if fit.design_rank < columns {
+        out.push(Diagnostic::RankDeficientDesign {
+            rank: fit.design_rank,
+            columns,
+        });
+    }
+    // Noise from the data alone: factor analysis at the rank the model implies
+    // (absorbing spectra × temperature terms + baseline terms).
+    let baseline_terms = match params.baseline {
+        hard::Baseline::None => 0,
+        hard::Baseline::Offset => 1,
+        hard::Baseline::OffsetAndSlope => 2,
+    };
+    if let Ok(dec) = crate::factor::decompose(set.absorbance().view())
+        && let Some(noise) = dec.noise_estimate(columns + baseline_terms)
+        && noise > 0.0
+        && fit.residual_sd > 1.5 * noise
+    {
+        out.push(Diagnostic::LackOfFit {
+            residual_sd: fit.residual_sd,
+            noise_estimate: noise,
+        });
+    }
+    out
+}
+
+/// Names of the files [`write_fit_outputs`] writes.
+pub const FIT_OUTPUTS: [&str; 5] = [
+    "report.json",
+    "parameters.csv",
+    "thermodynamics.csv",
+    "concentrations.csv",
+    "pure_spectra.csv",
+];
+
+/// Writes the report and its tables into `dir` (created if needed), atomically.
+///
+/// Refuses to overwrite any input file, and refuses to overwrite earlier outputs unless
+/// `force` is set.
+///
+/// # Errors
+/// [`Error::WouldOverwrite`] naming the file; [`Error::Output`] for I/O failures.
+pub fn write_fit_outputs(dir: &Path, report: &FitReport, force: bool) -> Result<Vec<PathBuf>> {
+    std::fs::create_dir_all(dir).map_err(|source| Error::Output {
+        path: dir.to_path_buf(),
+        source,
+    })?;
+    let targets: Vec<PathBuf> = FIT_OUTPUTS.iter().map(|n| dir.join(n)).collect();
+    guard_outputs(&targets, &report.inputs, force)?;
+    write_json(&targets[0], "fit-report", report)?;
+    let fit = &report.fit;
+    let mut params = Table::new(["species", "parameter", "value", "standard_error", "unit"]);
+    for p in &fit.parameters {
+        params.push_row([
+            p.parameter.species_name.clone(),
+            p.parameter.name.clone(),
+            format_float(p.value),
+            format_float(p.standard_error),
+            p.parameter.unit.clone(),
+        ]);
+    }
+    params.write_csv(&targets[1])?;
+    let mut thermo = Table::new([
+        "species",
+        "t_ref_K",
+        "dG_J_mol",
+        "se_dG",
+        "dH_J_mol",
+        "se_dH",
+        "dS_J_K_mol",
+        "se_dS",
+        "dCp_J_K_mol",
+        "se_dCp",
+    ]);
+    for t in &fit.thermodynamics {
+        let q = &t.standard;
+        let se = q.standard_errors();
+        thermo.push_row([
+            t.species.clone(),
+            format_float(q.t_ref_k),
+            format_float(q.dg_j_mol),
+            format_float(se[0]),
+            format_float(q.dh_j_mol),
+            format_float(se[1]),
+            format_float(q.ds_j_k_mol),
+            format_float(se[2]),
+            format_float(q.dcp_j_k_mol),
+            format_float(se[3]),
+        ]);
+    }
+    thermo.write_csv(&targets[2])?;
+    let mut conc = Table::new(
+        ["sample_id".to_string(), "series".into(), "temperature_K".into()]
+            .into_iter()
+            .chain(fit.species.iter().map(|s| format!("{s}_M"))),
+    );
+    for (i, id) in report.sample_ids.iter().enumerate() {
+        conc.push_row(
+            [
+                id.clone(),
+                report.series[i].clone(),
+                format_float(report.temperatures_k[i]),
+            ]
+            .into_iter()
+            .chain(fit.concentrations.row(i).iter().map(|v| format_float(*v))),
+        );
+    }
+    conc.write_csv(&targets[3])?;
+    let order_names = ["", "_dT", "_dT2"];
+    let columns: Vec<String> = (0..fit.spectra.ncols())
+        .map(|c| {
+            let na = fit.absorbing_species.len().max(1);
+            format!(
+                "{}{}",
+                fit.absorbing_species[c % na],
+                order_names[(c / na).min(2)]
+            )
+        })
+        .collect();
+    let mut spectra = Table::new(
+        std::iter::once("wavelength_nm".to_string()).chain(
+            columns
+                .iter()
+                .flat_map(|c| [format!("eps_{c}"), format!("se_{c}")]),
+        ),
+    );
+    for (j, w) in report.wavelengths_nm.iter().enumerate() {
+        spectra.push_row(
+            std::iter::once(format_float(*w)).chain((0..fit.spectra.ncols()).flat_map(|c| {
+                [
+                    format_float(fit.spectra[[j, c]]),
+                    format_float(fit.spectra_standard_errors[[j, c]]),
+                ]
+            })),
+        );
+    }
+    spectra.write_csv(&targets[4])?;
+    Ok(targets)
+}
+
+/// Refuses outputs that would overwrite an input, or an earlier output without `force`.
+///
+/// # Errors
+/// [`Error::WouldOverwrite`].
+pub fn guard_outputs(targets: &[PathBuf], inputs: &[InputFile], force: bool) -> Result<()> {
+    for t in targets {
+        let t_canon = std::fs::canonicalize(t).ok();
+        for i in inputs {
+            let same = match (&t_canon, std::fs::canonicalize(&i.path).ok()) {
+                (Some(a), Some(b)) => *a == b,
+                _ => false,
+            };
+            if same {
+                return Err(Error::WouldOverwrite {
+                    path: t.clone(),
+                    reason: "it is an input of this run",
+                });
+            }
+        }
+        if t.exists() && !force {
+            return Err(Error::WouldOverwrite {
+                path: t.clone(),
+                reason: "it exists from an earlier run (use --force)",
+            });
+        }
+    }
+    Ok(())
+}
+
+impl fmt::Display for FitReport {
+    fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
+        let fit = &self.fit;
+        writeln!(
+            f,
+            "global fit: {} samples × {} wavelengths, {} free parameters, {:?} after {} iterations",
+            self.sample_ids.len(),
+            self.wavelengths_nm.len(),
+            fit.parameters.len(),
+            fit.termination,
+            fit.iterations
+        )?;
+        writeln!(
+            f,
+            "residual sd {:.3e} AU (ν = {})",
+            fit.residual_sd, fit.degrees_of_freedom
+        )?;
+        writeln!(f)?;
+        writeln!(
+            f,
+            "  {:<10} {:<14} {:>14} {:>12}  unit",
+            "species", "parameter", "value", "std. error"
+        )?;
+        for p in &fit.parameters {
+            writeln!(
+                f,
+                "  {:<10} {:<14} {:>14.6} {:>12.4}  {}",
+                p.parameter.species_name, p.parameter.name, p.value, p.standard_error, p.parameter.unit
+            )?;
+        }
+        writeln!(f)?;
+        writeln!(
+            f,
+            "  {:<10} {:>8} {:>20} {:>22}",
+            "species", "T_ref/K", "ΔH°/(kJ mol⁻¹)", "ΔS°/(J K⁻¹ mol⁻¹)"
+        )?;
+        for t in &fit.thermodynamics {
+            let q = &t.standard;
+            let se = q.standard_errors();
+            writeln!(
+                f,
+                "  {:<10} {:>8.2} {:>11.3} ± {:<7.3} {:>12.2} ± {:<7.2}",
+                t.species,
+                q.t_ref_k,
+                q.dh_j_mol / 1e3,
+                se[1] / 1e3,
+                q.ds_j_k_mol,
+                se[2]
+            )?;
+        }
+        if !self.diagnostics.is_empty() {
+            writeln!(f)?;
+            for d in &self.diagnostics {
+                writeln!(f, "  note: {d}")?;
+            }
+        }
+        Ok(())
+    }
+}
