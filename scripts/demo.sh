@@ -1,16 +1,28 @@
 #!/usr/bin/env bash
-# The demo: set-up, build, then the main job on the invented data set in data/demo/.
-# Until the global fit lands, the demo inspects the data (summary, rank, evolving factors),
-# once from the CSV tables and once from the JCAMP-DX files of one series.
+# The demo: set-up, build, then the main job on the invented data set in data/demo/
+# (Ni(II)–bromide in a perchlorate brine, three bromide levels, 5–90 °C; see data/README.md).
+# Results go to out/demo/ (rewritten on every demo run).
 set -euo pipefail
 cd "$(dirname "$0")/.."
 bash scripts/setup.sh
 cargo build --release --quiet --bin isosbestic
 bin=target/release/isosbestic
 
-echo "== isosbestic inspect (CSV tables: 3 series, 5–90 °C)"
+echo "== 1. inspect: what the spectra hold (CSV tables)"
 "$bin" inspect --spectra data/demo/spectra.csv --samples data/demo/samples.csv
 
 echo
-echo "== isosbestic inspect (JCAMP-DX files of the Br-0.5 series)"
-"$bin" inspect --jcamp data/demo/jcamp/*.jdx --samples data/demo/samples_jcamp.csv
+echo "== 2. inspect: the Br-0.5 series read from JCAMP-DX files"
+"$bin" inspect --jcamp data/demo/jcamp/*.jdx --samples data/demo/samples_jcamp.csv --no-evolving
+
+echo
+echo "== 3. fit: global fit of ΔH°, ΔS° to all 54 spectra (run configuration data/demo/fit.toml)"
+"$bin" fit --config data/demo/fit.toml --out out/demo --force
+
+echo
+echo "== 4. vanthoff: a K(T) table fitted on its own"
+"$bin" vanthoff --k-table data/demo/k_table.csv --at-c 25
+
+echo
+echo "Reports and tables: out/demo/ (report.json, parameters.csv, thermodynamics.csv,"
+echo "concentrations.csv, pure_spectra.csv). The invented true values are in data/demo/truth.json."

@@ -147,3 +147,27 @@ fn baselines_are_eliminated_with_the_spectra() {
     );
     let _ = SpectraTemperature::Constant;
 }
+
+#[test]
+fn a_parameter_the_design_cannot_determine_never_gets_a_finite_standard_error() {
+    // One series at a low ligand level: MX2 barely forms, so its parameters are not determined.
+    // Whatever the optimiser does with them, their standard errors must not look precise.
+    let truth = model(0.4, 12_000.0, -3.0, 35_000.0);
+    let mut p = plan(Noise::Absorbance { sd_au: 1e-3 }, 11);
+    p.series.truncate(1);
+    p.series[0].totals_m.insert("X".into(), 0.05);
+    let sim = simulate(&truth, &p).unwrap();
+    let fit = hard::fit(&sim.set, &model(1.0, 0.0, 1.0, 0.0), &fit_params()).unwrap();
+    for t in &fit.thermodynamics {
+        let se = t.standard.standard_errors();
+        assert!(
+            se[1].is_nan() || se[1] > 0.0,
+            "{}: σ(ΔH°) = {} looks precise",
+            t.species,
+            se[1]
+        );
+    }
+    for p in &fit.parameters {
+        assert!(p.standard_error.is_nan() || p.standard_error > 0.0, "{:?}", p);
+    }
+}

@@ -93,9 +93,13 @@ pub struct StandardQuantities {
 }
 
 impl StandardQuantities {
-    /// Standard errors √diag(covariance) of [ΔG°, ΔH°, ΔS°, ΔCp°].
+    /// Standard errors √diag(covariance) of [ΔG°, ΔH°, ΔS°, ΔCp°]. A quantity the data do not
+    /// determine has a NaN or infinite variance and gets a NaN or infinite standard error, never 0.
     pub fn standard_errors(&self) -> [f64; 4] {
-        std::array::from_fn(|i| self.covariance[i][i].max(0.0).sqrt())
+        std::array::from_fn(|i| {
+            let v = self.covariance[i][i];
+            if v.is_nan() { f64::NAN } else { v.max(0.0).sqrt() }
+        })
     }
 }
 

@@ -623,29 +623,54 @@ fn summarise(
     let dof = ns * nw - free.len() - n_linear;
     let residual_sd = (rss / dof as f64).sqrt();
     let sigma = params.known_noise.unwrap_or(residual_sd);
-    // Cov = σ² (JᵀJ)⁻¹ by SVD of J (robust to near-singularity).
+    // Cov = σ² (JᵀJ)⁻¹ by SVD of J. Directions of the parameter space the data do not
+    // determine (singular values below 1e-10·s_max) get infinite variance: every parameter
+    // with a component along such a direction has an infinite variance and undefined (NaN)
+    // covariances. They are never reported as precise.
     let np = free.len();
-    let mut cov = Array2::zeros((np, np));
+    let mut cov = Array2::from_elem((np, np), f64::NAN);
     if out.jacobian.nrows() > 0
         && let Ok((_, sv, Some(vt))) = out.jacobian.svd(false, true)
     {
+        cov.fill(0.0);
         let smax = sv.iter().fold(0.0f64, |m, v| m.max(*v));
-        for k in 0..sv.len().min(np) {
-            if sv[k] > smax * 1e-12 {
-                let vk = vt.row(k);
+        let mut undetermined = vec![false; np];
+        for k in 0..np {
+            let s_k = sv.get(k).copied().unwrap_or(0.0);
+            let vk = vt.row(k);
+            if s_k > smax * 1e-10 {
                 for a in 0..np {
                     for b in 0..np {
-                        cov[[a, b]] += sigma * sigma * vk[a] * vk[b] / (sv[k] * sv[k]);
+                        cov[[a, b]] += sigma * sigma * vk[a] * vk[b] / (s_k * s_k);
                     }
                 }
             } else {
                 for a in 0..np {
-                    cov[[a, a]] = f64::INFINITY;
+                    if vk[a].abs() > 1e-8 {
+                        undetermined[a] = true;
+                    }
                 }
             }
         }
+        for a in 0..np {
+            if undetermined[a] {
+                for b in 0..np {
+                    cov[[a, b]] = f64::NAN;
+                    cov[[b, a]] = f64::NAN;
+                }
+                cov[[a, a]] = f64::INFINITY;
+            }
+        }
     }
-    let se: Vec<f64> = (0..np).map(|p| cov[[p, p]].max(0.0).sqrt()).collect();
+    let se: Vec<f64> = (0..np)
+        .map(|p| {
+            if cov[[p, p]].is_nan() {
+                f64::NAN
+            } else {
+                cov[[p, p]].max(0.0).sqrt()
+            }
+        })
+        .collect();
     let correlation = Array2::from_shape_fn((np, np), |(a, b)| {
         let denom = se[a] * se[b];
         if denom > 0.0 && denom.is_finite() {
@@ -728,7 +753,11 @@ fn summarise(
         residual_sd,
         sigma,
         design_singular_values: proj.singular_values.to_vec(),
-        design_rank: proj.rank,
+        design_rank: {
+            // determined directions: singular values above 1e-9 of the largest
+            let smax = proj.singular_values.iter().fold(0.0f64, |m, v| m.max(*v));
+            proj.singular_values.iter().filter(|&&v| v > 1e-9 * smax).count()
+        },
         iterations: out.iterations,
         termination: out.termination,
         starts_tried,

@@ -42,8 +42,6 @@ pub(crate) struct Projection {
     pub pinv: Array2<f64>,
     /// Singular values of X (all).
     pub singular_values: Array1<f64>,
-    /// Numerical rank used.
-    pub rank: usize,
 }
 
 impl VarproProblem<'_> {
@@ -199,7 +197,6 @@ impl VarproProblem<'_> {
             u,
             pinv,
             singular_values: s,
-            rank,
         })
     }
 
