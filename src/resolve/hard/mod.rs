@@ -395,11 +395,18 @@ fn build_problem<'a>(
     if free.is_empty() {
         return Err(HardFitError::NoFreeParameters);
     }
+    if let Some(sp) = model.species().iter().find(|s| s.known_spectrum.is_some()) {
+        return Err(HardFitError::Settings(format!(
+            "species '{}' has a known spectrum; holding known spectra fixed inside the global fit is not \
+             implemented yet (remove known_spectrum to fit its spectrum freely)",
+            sp.name
+        )));
+    }
     let absorbing: Vec<usize> = model
         .species()
         .iter()
         .enumerate()
-        .filter(|(_, s)| s.optics == crate::speciation::Optics::Absorbing && s.known_spectrum.is_none())
+        .filter(|(_, s)| s.optics == crate::speciation::Optics::Absorbing)
         .map(|(k, _)| k)
         .collect();
     if absorbing.is_empty() {
