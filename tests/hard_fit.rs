@@ -171,3 +171,56 @@ fn a_parameter_the_design_cannot_determine_never_gets_a_finite_standard_error() 
         assert!(p.standard_error.is_nan() || p.standard_error > 0.0, "{:?}", p);
     }
 }
+
+#[test]
+fn band_shifts_need_temperature_dependent_spectra() {
+    // Bands of MX2 shift by 0.08 nm/K. Constant spectra cannot follow; the quadratic ε(T) form
+    // can (issue 4: "band shifts need the quadratic term"). The residual-structure diagnostic
+    // must notice what the constant-spectra fit misses.
+    let truth = model(0.4, 12_000.0, -0.2, 35_000.0);
+    let mut p = plan(Noise::Absorbance { sd_au: 5e-4 }, 21);
+    for b in &mut p.spectra[2].bands {
+        b.shift_nm_per_k = 0.08;
+    }
+    let sim = simulate(&truth, &p).unwrap();
+    let start = model(1.0, 0.0, 1.0, 0.0);
+    let z = |fit: &hard::HardFit| {
+        let q = fit.parameter("MX2", "dh_ref").unwrap();
+        (q.value - 35_000.0) / q.standard_error
+    };
+    let constant = hard::fit(&sim.set, &start, &fit_params()).unwrap();
+    let quadratic = hard::fit(
+        &sim.set,
+        &start,
+        &HardFitParams {
+            spectra_temperature: SpectraTemperature::Quadratic { reference_k: 318.15 },
+            ..fit_params()
+        },
+    )
+    .unwrap();
+    assert!(quadratic.termination.converged());
+    assert!(
+        z(&constant).abs() > 3.0,
+        "constant spectra should be biased, z = {}",
+        z(&constant)
+    );
+    assert!(
+        z(&quadratic).abs() < 3.0,
+        "quadratic spectra should not be, z = {}",
+        z(&quadratic)
+    );
+    let diags = isosbestic::report::fit::diagnose(&sim.set, &constant, &fit_params());
+    assert!(
+        diags
+            .iter()
+            .any(|d| matches!(d, isosbestic::report::fit::Diagnostic::StructuredResiduals { .. })),
+        "{diags:?}"
+    );
+    // The nested F-test prefers the quadratic form decisively.
+    let t = hard::nested_f_test(
+        ("constant", constant.rss, constant.n_parameters_total),
+        ("quadratic", quadratic.rss, quadratic.n_parameters_total),
+        constant.n_data,
+    );
+    assert!(t.p_value < 1e-6, "{t:?}");
+}

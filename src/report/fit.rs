@@ -112,6 +112,13 @@ pub enum Diagnostic {
         /// Columns (absorbing species × spectra temperature terms).
         columns: usize,
     },
+    /// The residuals have structure: their largest singular value stands above the noise edge.
+    StructuredResiduals {
+        /// Largest singular value of the residual matrix.
+        first_singular_value: f64,
+        /// σ(√samples + √wavelengths) with σ the residual standard deviation.
+        noise_edge: f64,
+    },
     /// The residual standard deviation is well above the noise level estimated from the data
     /// alone: the model misses something (a species, ΔCp°, band changes with T, baselines).
     LackOfFit {
@@ -143,6 +150,13 @@ impl fmt::Display for Diagnostic {
             Self::RankDeficientDesign { rank, columns } => write!(
                 f,
                 "the concentration profiles span only {rank} of {columns} dimensions: some pure spectra are not determined"
+            ),
+            Self::StructuredResiduals {
+                first_singular_value,
+                noise_edge,
+            } => write!(
+                f,
+                "the residuals have structure: their first singular value {first_singular_value:.3e} exceeds the noise edge {noise_edge:.3e} (a missing species, baseline or band change with T?)"
             ),
             Self::LackOfFit {
                 residual_sd,
@@ -249,6 +263,18 @@ pub fn diagnose(set: &SpectraSet, fit: &HardFit, params: &HardFitParams) -> Vec<
         out.push(Diagnostic::RankDeficientDesign {
             rank: fit.design_rank,
             columns,
+        });
+    }
+    // Residual structure: with white noise the largest singular value of the residual matrix
+    // stays near σ(√rows + √columns) (edge of the noise spectrum; common practice, a 1.5 margin).
+    let (ns, nw) = (set.n_samples() as f64, set.n_wavelengths() as f64);
+    let edge = fit.residual_sd * (ns.sqrt() + nw.sqrt());
+    if let Some(&s1) = fit.residual_singular_values.first()
+        && s1 > 1.5 * edge
+    {
+        out.push(Diagnostic::StructuredResiduals {
+            first_singular_value: s1,
+            noise_edge: edge,
         });
     }
     // Noise from the data alone: factor analysis at the rank the model implies

@@ -256,6 +256,15 @@ pub struct HardFit {
     pub design_singular_values: Vec<f64>,
     /// Numerical rank of X; below the number of columns, some spectra are not determined.
     pub design_rank: usize,
+    /// Singular values of the residual matrix (samples × wavelengths), largest first. Equal to
+    /// those of the reduced residual, since the reduction is an orthogonal change of basis. A
+    /// first value well above the noise edge σ(√samples + √wavelengths) means structure the
+    /// model misses.
+    pub residual_singular_values: Vec<f64>,
+    /// Number of data values (samples × wavelengths).
+    pub n_data: usize,
+    /// Number of fitted parameters, linear and nonlinear (for model comparison).
+    pub n_parameters_total: usize,
     /// Solver iterations.
     pub iterations: u64,
     /// Why the solver stopped.
@@ -273,6 +282,95 @@ impl HardFit {
         self.parameters
             .iter()
             .find(|p| p.parameter.species_name == species && p.parameter.name == name)
+    }
+}
+
+/// One candidate model's fit in a comparison.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct CandidateScore {
+    /// Candidate name.
+    pub name: String,
+    /// Residual sum of squares.
+    pub rss: f64,
+    /// Parameters fitted (nonlinear + linear).
+    pub parameters: usize,
+    /// Akaike's information criterion for Gaussian errors, n·ln(RSS/n) + 2k.
+    pub aic: f64,
+    /// Schwarz's Bayesian information criterion, n·ln(RSS/n) + k·ln n.
+    pub bic: f64,
+    /// AIC minus the best AIC (0 for the best).
+    pub delta_aic: f64,
+}
+
+/// An F-test of a model against a nested, simpler one fitted to the same data.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct NestedTest {
+    /// The simpler model.
+    pub simpler: String,
+    /// The richer model.
+    pub richer: String,
+    /// F = ((RSS₀ − RSS₁)/(k₁ − k₀)) / (RSS₁/(n − k₁)).
+    pub f: f64,
+    /// P(F' > F) under the simpler model.
+    pub p_value: f64,
+}
+
+/// Ranks candidate fits of the same data by AIC (Akaike, IEEE Trans. Autom. Control 19 (1974)
+/// 716) and BIC (Schwarz, Ann. Stat. 6 (1978) 461), best first.
+///
+/// # Examples
+/// ```
+/// use isosbestic::resolve::hard::rank_candidates;
+/// // (name, RSS, parameters, data values)
+/// let r = rank_candidates(&[("small", 2.0, 10, 1000), ("large", 1.0, 12, 1000)]);
+/// assert_eq!(r[0].name, "large"); // halving RSS is worth two parameters
+/// approx::assert_abs_diff_eq!(r[0].delta_aic, 0.0);
+/// ```
+pub fn rank_candidates(candidates: &[(&str, f64, usize, usize)]) -> Vec<CandidateScore> {
+    let mut out: Vec<CandidateScore> = candidates
+        .iter()
+        .map(|&(name, rss, k, n)| {
+            let nf = n as f64;
+            let base = nf * (rss / nf).ln();
+            CandidateScore {
+                name: name.to_string(),
+                rss,
+                parameters: k,
+                aic: base + 2.0 * k as f64,
+                bic: base + k as f64 * nf.ln(),
+                delta_aic: 0.0,
+            }
+        })
+        .collect();
+    out.sort_by(|a, b| a.aic.total_cmp(&b.aic));
+    let best = out.first().map_or(0.0, |c| c.aic);
+    for c in &mut out {
+        c.delta_aic = c.aic - best;
+    }
+    out
+}
+
+/// F-test of a richer model against a simpler, nested one (the simpler is the richer with some
+/// parameters fixed, e.g. without ΔCp° or with constant spectra), both fitted to the same data.
+///
+/// # Examples
+/// ```
+/// use isosbestic::resolve::hard::nested_f_test;
+/// let t = nested_f_test(("vant_hoff", 1.10, 4), ("heat_capacity", 1.00, 6), 1000);
+/// approx::assert_relative_eq!(t.f, (0.10 / 2.0) / (1.00 / 994.0), max_relative = 1e-12);
+/// assert!(t.p_value < 1e-10);
+/// ```
+pub fn nested_f_test(simpler: (&str, f64, usize), richer: (&str, f64, usize), n_data: usize) -> NestedTest {
+    let (dk, dof) = (
+        (richer.2 as f64 - simpler.2 as f64).max(1.0),
+        n_data as f64 - richer.2 as f64,
+    );
+    let f = ((simpler.1 - richer.1) / dk) / (richer.1 / dof);
+    NestedTest {
+        simpler: simpler.0.to_string(),
+        richer: richer.0.to_string(),
+        f,
+        p_value: crate::stats::f_sf(f, dk, dof),
     }
 }
 
@@ -627,6 +725,10 @@ fn summarise(
         .map_err(|e| HardFitError::Solver(e.to_string()))?;
     let r = problem.residual_matrix(&proj);
     let rss = sum_sq(r.view());
+    let residual_singular_values = r
+        .svd(false, false)
+        .map(|(_, sv, _)| sv.to_vec())
+        .unwrap_or_default();
     let dof = ns * nw - free.len() - n_linear;
     let residual_sd = (rss / dof as f64).sqrt();
     let sigma = params.known_noise.unwrap_or(residual_sd);
@@ -760,6 +862,9 @@ fn summarise(
         residual_sd,
         sigma,
         design_singular_values: proj.singular_values.to_vec(),
+        residual_singular_values,
+        n_data: ns * nw,
+        n_parameters_total: free.len() + n_linear,
         design_rank: {
             // determined directions: singular values above 1e-9 of the largest
             let smax = proj.singular_values.iter().fold(0.0f64, |m, v| m.max(*v));
