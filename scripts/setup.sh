@@ -4,12 +4,15 @@
 #
 #   libopenblas-dev        static libopenblas.a (linked by .cargo/config.toml)
 #   libgfortran-<gcc>-dev  libgfortran.so for OpenBLAS's Fortran LAPACK
-#   chromium               headless rendering check of report.html (optional: skipped if absent
-#                          and ISOSBESTIC_SKIP_BROWSER=1)
+#   chromium               headless rendering check of report.html in the test suite
+#                          (set ISOSBESTIC_SKIP_BROWSER=1 to skip installing and that test)
 set -euo pipefail
 
 gcc_major=$(gcc -dumpversion 2>/dev/null | cut -d. -f1 || true)
 packages=(libopenblas-dev "libgfortran-${gcc_major:-12}-dev")
+if [ "${ISOSBESTIC_SKIP_BROWSER:-0}" != "1" ]; then
+  packages+=(chromium)
+fi
 
 missing=()
 for p in "${packages[@]}"; do

@@ -224,3 +224,72 @@ fn band_shifts_need_temperature_dependent_spectra() {
     );
     assert!(t.p_value < 1e-6, "{t:?}");
 }
+
+/// M + X ⇌ MX with an optional ε ceiling on the free metal.
+fn one_to_one(lb: f64, dh: f64, ceiling: Option<f64>) -> isosbestic::speciation::ValidModel {
+    let c = ceiling.map_or(String::new(), |c| format!(", max_absorptivity = {c}"));
+    EquilibriumModel::from_toml_str(&format!(
+        r#"
+        components = [{{ name = "M", absorbs = true{c} }}, {{ name = "X", absorbs = false }}]
+        [[species]]
+        name = "MX"
+        stoichiometry = {{ M = 1, X = 1 }}
+        absorbs = true
+        law = {{ kind = "van_t_hoff", log_beta_ref = {{ value = {lb} }}, dh_ref = {{ value = {dh} }} }}
+        "#
+    ))
+    .unwrap()
+    .check()
+    .unwrap()
+}
+
+#[test]
+fn a_mirror_solution_is_found_and_the_weak_absorber_ceiling_decides() {
+    // One series, ligand in large excess: the free metal and the complex can swap roles
+    // (ΔH° → −ΔH°, spectra swapped) and fit almost equally well (issue 4 §2). The truth has a
+    // weakly absorbing metal (peak ε 5); declaring a ceiling of 20 must select the truth.
+    let truth = one_to_one(0.0, 30_000.0, None);
+    let band = |c: f64, w: f64, h: f64| Band {
+        centre_nm: c,
+        width_nm: w,
+        height: h,
+        shift_nm_per_k: 0.0,
+    };
+    let mut p = plan(Noise::Absorbance { sd_au: 5e-4 }, 5);
+    p.series = vec![SeriesPlan {
+        label: "x".into(),
+        totals_m: [("M".into(), 0.02), ("X".into(), 2.0)].into(),
+    }];
+    p.thermal_expansion = false;
+    p.spectra = vec![
+        PureSpectrum {
+            species: "M".into(),
+            bands: vec![band(520.0, 40.0, 5.0)],
+        },
+        PureSpectrum {
+            species: "MX".into(),
+            bands: vec![band(600.0, 50.0, 60.0)],
+        },
+    ];
+    let sim = simulate(&truth, &p).unwrap();
+    let params = HardFitParams::default();
+    let with_prior = hard::fit(&sim.set, &one_to_one(0.5, 0.0, Some(20.0)), &params).unwrap();
+    let dh = with_prior.parameter("MX", "dh_ref").unwrap();
+    assert!(
+        ((dh.value - 30_000.0) / dh.standard_error).abs() < 3.0,
+        "{} ± {}",
+        dh.value,
+        dh.standard_error
+    );
+    assert!(
+        with_prior.ceiling_violations.is_empty(),
+        "{:?}",
+        with_prior.ceiling_violations
+    );
+    let without = hard::fit(&sim.set, &one_to_one(0.5, 0.0, None), &params).unwrap();
+    eprintln!("alternatives without prior: {:?}", without.alternatives);
+    assert!(
+        !without.alternatives.is_empty(),
+        "the mirror solution should be reported"
+    );
+}

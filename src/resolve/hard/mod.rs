@@ -274,6 +274,11 @@ pub struct HardFit {
     /// Parameters that ended on a bound (the fit is then constrained, and their standard errors
     /// are not meaningful).
     pub at_bounds: Vec<String>,
+    /// Species whose fitted spectrum breaks its declared ε ceiling (`max_absorptivity`).
+    pub ceiling_violations: Vec<String>,
+    /// Distinct solutions found from the other side (ΔH° signs flipped) that fit almost as well
+    /// (Δχ² < [`MIRROR_DELTA_CHI2`]): the data alone cannot choose between them.
+    pub alternatives: Vec<AlternativeSolution>,
 }
 
 impl HardFit {
@@ -283,6 +288,22 @@ impl HardFit {
             .iter()
             .find(|p| p.parameter.species_name == species && p.parameter.name == name)
     }
+}
+
+/// A second, distinct solution that fits almost as well as the reported one.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct AlternativeSolution {
+    /// Its parameter values (order of [`HardFit::parameters`]).
+    pub parameters: Vec<f64>,
+    /// Its residual sum of squares.
+    pub rss: f64,
+    /// (RSS_alternative − RSS_reported)/σ².
+    pub delta_chi2: f64,
+    /// ε ceilings it breaks.
+    pub ceiling_violations: Vec<String>,
+    /// True when the reported solution was chosen over this one because this one breaks an ε
+    /// ceiling (prior knowledge), not because it fits better.
+    pub chosen_by_prior: bool,
 }
 
 /// One candidate model's fit in a comparison.
@@ -563,15 +584,15 @@ pub fn fit(set: &SpectraSet, model: &ValidModel, params: &HardFitParams) -> Resu
     let (lower, upper) = bounds(&free, params);
     let starts = start_points(&problem, &free, &start0, params)?;
     let starts_tried = starts.len();
+    let solver = LmParams {
+        lower: lower.clone(),
+        upper: upper.clone(),
+        ..params.solver.clone()
+    };
     let mut best: Option<lm::LmOutcome> = None;
     let mut last_error = None;
-    for start in starts.into_iter().take(3) {
-        let solver = LmParams {
-            lower: lower.clone(),
-            upper: upper.clone(),
-            ..params.solver.clone()
-        };
-        match lm::minimise(&problem, start, solver) {
+    for start in starts.iter().take(3) {
+        match lm::minimise(&problem, start.clone(), solver.clone()) {
             Ok(out) => {
                 if best.as_ref().is_none_or(|b| out.cost < b.cost) {
                     best = Some(out);
@@ -582,28 +603,85 @@ pub fn fit(set: &SpectraSet, model: &ValidModel, params: &HardFitParams) -> Resu
     }
     let out =
         best.ok_or_else(|| HardFitError::Solver(last_error.unwrap_or_else(|| "no start converged".into())))?;
-    let mut fit = summarise(
-        set,
-        model,
-        &problem,
-        &free,
-        out,
-        params,
-        nw,
-        n_linear,
-        starts_tried,
-    )?;
-    fit.at_bounds = free
-        .iter()
-        .zip(&fit.parameters)
-        .enumerate()
-        .filter(|(p, (_, fp))| {
-            let tol = 1e-9 * (upper[*p] - lower[*p]).abs().min(1e9);
-            fp.value <= lower[*p] + tol || fp.value >= upper[*p] - tol
-        })
-        .map(|(_, (f, _))| format!("{} {}", f.species_name, f.name))
-        .collect();
+    // The other side: the best start whose ΔH° signs differ from the solution's. With one series
+    // and the ligand in excess, metal and complex can swap (ΔH° → −ΔH°) and fit almost as well.
+    let dh_idx: Vec<usize> = (0..free.len()).filter(|&p| free[p].name == "dh_ref").collect();
+    let signs = |x: &Array1<f64>| -> Vec<bool> { dh_idx.iter().map(|&p| x[p] >= 0.0).collect() };
+    let mirror_out = if dh_idx.is_empty() {
+        None
+    } else {
+        let best_signs = signs(&out.param);
+        starts
+            .iter()
+            .find(|x| signs(x) != best_signs)
+            .and_then(|x| lm::minimise(&problem, x.clone(), solver.clone()).ok())
+    };
+    let finish = |o: lm::LmOutcome| -> Result<HardFit, HardFitError> {
+        let mut fit = summarise(set, model, &problem, &free, o, params, nw, n_linear, starts_tried)?;
+        fit.at_bounds = free
+            .iter()
+            .zip(&fit.parameters)
+            .enumerate()
+            .filter(|(p, (_, fp))| {
+                let tol = 1e-9 * (upper[*p] - lower[*p]).abs().min(1e9);
+                fp.value <= lower[*p] + tol || fp.value >= upper[*p] - tol
+            })
+            .map(|(_, (f, _))| format!("{} {}", f.species_name, f.name))
+            .collect();
+        fit.ceiling_violations = ceiling_violations(model, &fit);
+        Ok(fit)
+    };
+    let mut fit = finish(out)?;
+    if let Some(m) = mirror_out {
+        let mirror = finish(m)?;
+        let distinct = fit.parameters.iter().zip(&mirror.parameters).any(|(a, b)| {
+            (a.value - b.value).abs() > 5.0 * a.standard_error.max(b.standard_error).max(1e-12)
+        });
+        let delta_chi2 = (mirror.rss - fit.rss) / (fit.sigma * fit.sigma);
+        if distinct && delta_chi2.abs() < MIRROR_DELTA_CHI2 {
+            // Prior knowledge decides: a solution that breaks a declared ε ceiling loses.
+            let (keep, other, chosen_by_prior) =
+                if !fit.ceiling_violations.is_empty() && mirror.ceiling_violations.is_empty() {
+                    (mirror, fit, true)
+                } else {
+                    (fit, mirror, false)
+                };
+            let mut keep = keep;
+            keep.alternatives.push(AlternativeSolution {
+                parameters: other.parameters.iter().map(|p| p.value).collect(),
+                rss: other.rss,
+                delta_chi2: (other.rss - keep.rss) / (keep.sigma * keep.sigma),
+                ceiling_violations: other.ceiling_violations.clone(),
+                chosen_by_prior,
+            });
+            fit = keep;
+        }
+    }
     Ok(fit)
+}
+
+/// Largest Δχ² at which a distinct second solution is reported as an alternative.
+pub const MIRROR_DELTA_CHI2: f64 = 25.0;
+
+/// Species whose fitted spectrum exceeds its declared `max_absorptivity`.
+fn ceiling_violations(model: &ValidModel, fit: &HardFit) -> Vec<String> {
+    let na = fit.absorbing_species.len();
+    fit.absorbing_species
+        .iter()
+        .enumerate()
+        .filter_map(|(c, name)| {
+            let ceiling = model
+                .species()
+                .iter()
+                .find(|s| &s.name == name)?
+                .max_absorptivity?;
+            let peak = (0..fit.spectra.nrows())
+                .map(|j| fit.spectra[[j, c]])
+                .fold(f64::NEG_INFINITY, f64::max);
+            let _ = na;
+            (peak > ceiling).then(|| format!("{name}: peak ε {peak:.1} > ceiling {ceiling}"))
+        })
+        .collect()
 }
 
 /// Bounds: the user's when given, otherwise the physically sensible range of each kind of
@@ -874,6 +952,8 @@ fn summarise(
         termination: out.termination,
         starts_tried,
         at_bounds: Vec::new(),
+        ceiling_violations: Vec::new(),
+        alternatives: Vec::new(),
     })
 }
 
