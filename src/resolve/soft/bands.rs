@@ -290,8 +290,8 @@ fn nelder_mead(f: &dyn Fn(&[f64]) -> f64, x0: &[f64], step: f64, max_eval: usize
                 // shrink towards the best point
                 let x0 = simplex[0].0.clone();
                 for p in simplex.iter_mut().skip(1) {
-                    for j in 0..n {
-                        p.0[j] = x0[j] + 0.5 * (p.0[j] - x0[j]);
+                    for (pj, x0j) in p.0.iter_mut().zip(&x0) {
+                        *pj = x0j + 0.5 * (*pj - x0j);
                     }
                     p.1 = f(&p.0);
                 }
@@ -313,7 +313,6 @@ fn nelder_mead(f: &dyn Fn(&[f64]) -> f64, x0: &[f64], step: f64, max_eval: usize
 /// # Examples
 /// ```
 /// use isosbestic::resolve::soft::{band_boundaries, resolve_matrix, BandParams, SampleLayout, SoftParams};
-/// use ndarray::Array2;
 /// // perfectly selective: wavelength 0 sees only species 0, wavelength 3 only species 1, and
 /// // sample 0 holds only species 0, sample 4 only species 1 — no rotation is feasible.
 /// let c = ndarray::array![[1.0, 0.0], [0.8, 0.2], [0.5, 0.5], [0.2, 0.8], [0.0, 1.0]];

@@ -74,7 +74,7 @@ pub(crate) fn purest_variables(d: ArrayView2<f64>, n: usize, alpha: f64) -> Resu
     let mut chosen: Vec<usize> = Vec::with_capacity(n);
     for _ in 0..n {
         let mut best: Option<(usize, f64)> = None;
-        for j in 0..nw {
+        for (j, &pj) in purity.iter().enumerate() {
             if chosen.contains(&j) {
                 continue;
             }
@@ -84,7 +84,7 @@ pub(crate) fn purest_variables(d: ArrayView2<f64>, n: usize, alpha: f64) -> Resu
             let w = sub.det().map_err(|e| SoftError::Numerical {
                 what: format!("purest-variable weight: {e}"),
             })?;
-            let score = purity[j] * w.max(0.0);
+            let score = pj * w.max(0.0);
             if best.is_none_or(|(_, s)| score > s) {
                 best = Some((j, score));
             }

@@ -662,13 +662,6 @@ impl Prepared {
                 ),
             ));
         }
-        if k > ns.min(nw) {
-            return Err(SoftError::TooManySpecies {
-                n_species: k,
-                samples: ns,
-                wavelengths: nw,
-            });
-        }
         let mut known = vec![None; k];
         for ks in &params.known_spectra {
             if ks.spectrum.len() != nw {
@@ -889,6 +882,14 @@ pub fn resolve_matrix(
     let params = params.params();
     let prep = Prepared::new(d, layout, params)?;
     let k = params.n_species;
+    let (ns, nw) = d.dim();
+    if k > ns.min(nw) {
+        return Err(SoftError::TooManySpecies {
+            n_species: k,
+            samples: ns,
+            wavelengths: nw,
+        });
+    }
     let (mut c, mut s) = match &params.initial {
         InitialEstimate::Spectra { spectra } => {
             let s0 = spectra.clone();
