@@ -815,3 +815,149 @@ fn every_data_problem_is_a_typed_error_naming_where_it_is() {
     ));
     let _ = Constraint::NonNegative;
 }
+
+#[test]
+fn the_hybrid_option_recovers_the_simulated_equilibrium_parameters() {
+    use isosbestic::resolve::soft::{Hybrid, HybridSpecies};
+    let truth = equilibrium_model();
+    let mut plan = equilibrium_plan(Noise::None);
+    plan.thermal_expansion = false; // the hybrid option uses the totals as given
+    let sim = simulate(&truth, &plan).unwrap();
+    // start the model away from the truth (log β 0.4, ΔH° 25 kJ/mol in the simulation)
+    let start = EquilibriumModel::from_toml_str(
+        r#"
+        components = [{ name = "M", absorbs = true }, { name = "X", absorbs = false }]
+        [[species]]
+        name = "MX"
+        stoichiometry = { M = 1, X = 1 }
+        absorbs = true
+        law = { kind = "van_t_hoff", log_beta_ref = { value = 1.0 }, dh_ref = { value = 0.0 } }
+        "#,
+    )
+    .unwrap();
+    let params = SoftParams {
+        n_species: 2,
+        hybrid: Some(Hybrid {
+            model: start,
+            species: vec![
+                HybridSpecies {
+                    resolved: 0,
+                    model_species: "M".into(),
+                },
+                HybridSpecies {
+                    resolved: 1,
+                    model_species: "MX".into(),
+                },
+            ],
+            solver: Default::default(),
+        }),
+        tolerance: 1e-10,
+        max_iterations: 300,
+        ..SoftParams::default()
+    }
+    .check()
+    .unwrap();
+    let out = resolve(&sim.set, &params).unwrap();
+    let h = out.hybrid.as_ref().unwrap();
+    eprintln!(
+        "hybrid: {} iterations ({:?}), LOF {:.3e} %, parameters {:?}",
+        out.iterations, out.termination, out.lack_of_fit_percent, h.parameters
+    );
+    let get = |name: &str| {
+        h.parameters
+            .iter()
+            .find(|p| p.species == "MX" && p.name == name)
+            .unwrap()
+            .value
+    };
+    // truth: the simulation's input parameters
+    approx::assert_relative_eq!(get("log_beta_ref"), 0.4, max_relative = 1e-6);
+    approx::assert_relative_eq!(get("dh_ref"), 25_000.0, max_relative = 1e-6);
+    assert!(out.lack_of_fit_percent < 1e-5);
+}
+
+#[test]
+fn bad_hybrid_settings_are_typed_errors() {
+    use isosbestic::resolve::soft::{Hybrid, HybridSpecies};
+    let model = equilibrium_model().as_model().clone();
+    let hybrid = |species: Vec<(usize, &str)>| {
+        Some(Hybrid {
+            model: model.clone(),
+            species: species
+                .into_iter()
+                .map(|(resolved, name)| HybridSpecies {
+                    resolved,
+                    model_species: name.into(),
+                })
+                .collect(),
+            solver: Default::default(),
+        })
+    };
+    let check = |h| {
+        SoftParams {
+            hybrid: h,
+            ..SoftParams::default()
+        }
+        .check()
+        .unwrap_err()
+    };
+    assert!(matches!(
+        check(hybrid(vec![])),
+        SoftError::InvalidParameter {
+            name: "hybrid.species",
+            ..
+        }
+    ));
+    assert!(matches!(
+        check(hybrid(vec![(2, "M")])),
+        SoftError::InvalidParameter {
+            name: "hybrid.species",
+            ..
+        }
+    ));
+    assert!(matches!(
+        check(hybrid(vec![(0, "M"), (0, "MX")])),
+        SoftError::InvalidParameter {
+            name: "hybrid.species",
+            ..
+        }
+    ));
+    assert_eq!(
+        check(hybrid(vec![(0, "MQ")])),
+        SoftError::NotInModel {
+            name: "MQ".into(),
+            kind: "species"
+        }
+    );
+    // a model whose species names an unknown component
+    let mut broken = model.clone();
+    broken.species[0].stoichiometry.insert("Q".into(), 1);
+    let e = SoftParams {
+        hybrid: Some(Hybrid {
+            model: broken,
+            species: vec![HybridSpecies {
+                resolved: 0,
+                model_species: "M".into(),
+            }],
+            solver: Default::default(),
+        }),
+        ..SoftParams::default()
+    }
+    .check()
+    .unwrap_err();
+    assert!(matches!(e, SoftError::Model(_)), "{e:?}");
+    // the data give no totals for the model's components
+    let (_, _, d) = selective_two();
+    let p = SoftParams {
+        hybrid: hybrid(vec![(1, "MX")]),
+        ..SoftParams::default()
+    }
+    .check()
+    .unwrap();
+    assert_eq!(
+        resolve_matrix(d.view(), &SampleLayout::single_series(15), &p).unwrap_err(),
+        SoftError::MissingTotal {
+            component: "M".into()
+        }
+    );
+}

@@ -50,9 +50,10 @@
 //! transformations that keep the fit and (within a penalty) the constraints (Tauler, J. Chemom.
 //! 15 (2001) 627). See [`bands`] for the method and its limits.
 //!
-//! ## Not implemented
-//! The hybrid hard–soft option (de Juan, Maeder, Martínez, Tauler, Chemom. Intell. Lab. Syst. 54
-//! (2000) 123) is not implemented.
+//! ## Hybrid hard–soft
+//! Optionally ([`Hybrid`]) the profiles of selected species follow an equilibrium model whose
+//! parameters are refitted to the soft profiles at every iteration (de Juan, Maeder, Martínez,
+//! Tauler, Chemom. Intell. Lab. Syst. 54 (2000) 123); see [`hybrid`] for the variant used.
 //!
 //! # Examples
 //! ```
@@ -74,15 +75,18 @@
 //! ```
 
 pub mod bands;
+pub mod hybrid;
 mod init;
 mod unimodal;
 
 pub use bands::{BandParams, BoundaryProfiles, SpeciesBand, ValidBandParams, band_boundaries};
+pub use hybrid::{HybridParameter, HybridResult};
 
 use super::linear::{self, Constraint, LinearError, NnlsParams, nnls_normal};
+use super::lm::LmParams;
 use crate::data::{SpectraSet, SpectraSetError};
 use crate::factor::{FactorError, decompose};
-use crate::speciation::ValidModel;
+use crate::speciation::{EquilibriumModel, SpeciationError, ValidModel};
 use ndarray::{Array1, Array2, ArrayView1, ArrayView2, Axis};
 use ndarray_linalg::LeastSquaresSvd;
 use serde::{Deserialize, Serialize};
@@ -166,6 +170,9 @@ pub enum SoftError {
         /// "species" or "component".
         kind: &'static str,
     },
+    /// The hybrid option's equilibrium model is invalid or its speciation failed.
+    #[error("hybrid model: {0}")]
+    Model(SpeciationError),
     /// A linear solve failed.
     #[error(transparent)]
     Linear(#[from] LinearError),
@@ -311,6 +318,29 @@ pub enum InitialEstimate {
     },
 }
 
+/// A resolved species whose profile follows a species of the equilibrium model.
+#[derive(Debug, Clone, PartialEq, Eq, Serialize, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct HybridSpecies {
+    /// Column of C (resolved species index).
+    pub resolved: usize,
+    /// Name of the model species (a free component or a formed species).
+    pub model_species: String,
+}
+
+/// The hybrid hard–soft option: an equilibrium model for some of the profiles.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct Hybrid {
+    /// The equilibrium model; its free law parameters are refitted at every iteration.
+    pub model: EquilibriumModel,
+    /// Which resolved species follow which model species.
+    pub species: Vec<HybridSpecies>,
+    /// Settings of the parameter fit (default [`LmParams::default`]).
+    #[serde(default)]
+    pub solver: LmParams,
+}
+
 /// Settings of a soft resolution (unchecked; [`SoftParams::check`] validates them).
 ///
 /// # Examples
@@ -345,6 +375,8 @@ pub struct SoftParams {
     pub max_iterations: usize,
     /// Consecutive rises of the lack of fit that count as divergence (default 20).
     pub divergence_patience: usize,
+    /// Hybrid hard–soft option (default none).
+    pub hybrid: Option<Hybrid>,
 }
 
 impl Default for SoftParams {
@@ -361,18 +393,23 @@ impl Default for SoftParams {
             tolerance: 1e-6,
             max_iterations: 2000,
             divergence_patience: 20,
+            hybrid: None,
         }
     }
 }
 
 /// Checked settings, made by [`SoftParams::check`].
-#[derive(Debug, Clone, PartialEq, Serialize)]
-pub struct ValidSoftParams(SoftParams);
+#[derive(Debug, Clone, PartialEq)]
+pub struct ValidSoftParams {
+    params: SoftParams,
+    /// The checked model and (resolved column, model species index) pairs of the hybrid option.
+    hybrid: Option<(ValidModel, Vec<(usize, usize)>)>,
+}
 
 impl ValidSoftParams {
     /// The settings.
     pub fn params(&self) -> &SoftParams {
-        &self.0
+        &self.params
     }
 }
 
@@ -500,7 +537,39 @@ impl SoftParams {
                 }
             }
         }
-        Ok(ValidSoftParams(self))
+        let hybrid = match &self.hybrid {
+            None => None,
+            Some(h) => {
+                let model = h.model.check().map_err(SoftError::Model)?;
+                if h.species.is_empty() {
+                    return Err(invalid("hybrid.species", "lists no species"));
+                }
+                let mut pairs = Vec::with_capacity(h.species.len());
+                for hs in &h.species {
+                    if hs.resolved >= k {
+                        return Err(invalid(
+                            "hybrid.species",
+                            format!("resolved species {} is out of range (0…{})", hs.resolved, k - 1),
+                        ));
+                    }
+                    if pairs.iter().any(|&(r, _)| r == hs.resolved) {
+                        return Err(invalid(
+                            "hybrid.species",
+                            format!("resolved species {} is given twice", hs.resolved),
+                        ));
+                    }
+                    let m = model
+                        .species_index(&hs.model_species)
+                        .ok_or_else(|| SoftError::NotInModel {
+                            name: hs.model_species.clone(),
+                            kind: "species",
+                        })?;
+                    pairs.push((hs.resolved, m));
+                }
+                Some((model, pairs))
+            }
+        };
+        Ok(ValidSoftParams { params: self, hybrid })
     }
 }
 
@@ -611,6 +680,8 @@ pub struct SoftResolution {
     pub termination: SoftTermination,
     /// LOF (%) after each iteration.
     pub history: Vec<f64>,
+    /// The model parameters of the hybrid option, when used.
+    pub hybrid: Option<HybridResult>,
 }
 
 /// The constraint data for a run, resolved against D and the layout.
@@ -834,7 +905,8 @@ fn residual_ss(d: ArrayView2<f64>, path: &Array1<f64>, c: &Array2<f64>, s: &Arra
 }
 
 /// One constrained concentration step (the C step of the iterations) on its own: C from D and
-/// S under the settings' non-negativity, absences, closure and unimodality.
+/// S under the settings' non-negativity, absences, closure and unimodality (not the hybrid
+/// option).
 ///
 /// # Errors
 /// As [`resolve_matrix`].
@@ -879,6 +951,7 @@ pub fn resolve_matrix(
     layout: &SampleLayout,
     params: &ValidSoftParams,
 ) -> Result<SoftResolution, SoftError> {
+    let hybrid_setup = &params.hybrid;
     let params = params.params();
     let prep = Prepared::new(d, layout, params)?;
     let k = params.n_species;
@@ -913,6 +986,29 @@ pub fn resolve_matrix(
             (c0, s0)
         }
     };
+    let mut hybrid = match (hybrid_setup, &params.hybrid) {
+        (Some((model, pairs)), Some(h)) => {
+            let mut totals = Array2::zeros((ns, model.n_components()));
+            for (m, name) in model.component_names().iter().enumerate() {
+                let col = layout.components.iter().position(|c| c == name).ok_or_else(|| {
+                    SoftError::MissingTotal {
+                        component: name.clone(),
+                    }
+                })?;
+                totals.column_mut(m).assign(&layout.totals_m.column(col));
+            }
+            Some(hybrid::HybridState::new(
+                model.clone(),
+                pairs.clone(),
+                layout.temperatures_k.clone(),
+                totals,
+                layout.ids.clone(),
+                h.solver.clone(),
+                prep.closure.is_some(),
+            ))
+        }
+        _ => None,
+    };
     let ssd: f64 = d.iter().map(|v| v * v).sum::<f64>().max(f64::MIN_POSITIVE);
     let lof = |c: &Array2<f64>, s: &Array2<f64>| 100.0 * (residual_ss(d, &prep.path, c, s) / ssd).sqrt();
     let mut history = Vec::new();
@@ -923,6 +1019,9 @@ pub fn resolve_matrix(
     while iterations < params.max_iterations {
         iterations += 1;
         let mut c_new = prep.concentrations(d, s.view())?;
+        if let Some(h) = hybrid.as_mut() {
+            h.apply(&mut c_new)?;
+        }
         let s_new = prep.spectra(d, &mut c_new)?;
         c = c_new;
         s = s_new;
@@ -960,6 +1059,7 @@ pub fn resolve_matrix(
         iterations,
         termination,
         history,
+        hybrid: hybrid.map(|h| h.result()),
     })
 }
 
