@@ -961,3 +961,48 @@ fn bad_hybrid_settings_are_typed_errors() {
         }
     );
 }
+
+#[test]
+fn a_rising_lack_of_fit_is_reported_as_diverging() {
+    // Species 0 truly has two maxima along temperature; forcing unimodality makes the
+    // constrained steps fight the data, and from a poor start the lack of fit rises.
+    let n = 20;
+    let c = Array2::from_shape_fn((n, 2), |(i, k)| {
+        let x = i as f64;
+        if k == 0 {
+            gauss(x, 4.0, 2.0) + gauss(x, 15.0, 2.0)
+        } else {
+            gauss(x, 10.0, 3.0)
+        }
+    });
+    let s = Array2::from_shape_fn((50, 2), |(j, k)| {
+        gauss(j as f64, if k == 0 { 15.0 } else { 35.0 }, 8.0)
+    });
+    let d = c.dot(&s.t());
+    let mut found = None;
+    for seed in 0..20u64 {
+        let mut rng = isosbestic::testing::rng(seed);
+        let params = SoftParams {
+            n_species: 2,
+            unimodality: Unimodality::AlongTemperature,
+            divergence_patience: 1,
+            initial: InitialEstimate::Spectra {
+                spectra: Array2::from_shape_fn((50, 2), |_| rng.random_range(0.0..1.0)),
+            },
+            ..SoftParams::default()
+        }
+        .check()
+        .unwrap();
+        let out = resolve_matrix(d.view(), &SampleLayout::single_series(n), &params).unwrap();
+        if out.termination == SoftTermination::Diverging {
+            found = Some(out);
+            break;
+        }
+    }
+    let out = found.expect("no start gave a rising lack of fit");
+    let h = &out.history;
+    // the run stopped right after the lack of fit rose, and returned that last state
+    assert!(h[h.len() - 1] > h[h.len() - 2]);
+    assert_eq!(h.len(), out.iterations);
+    approx::assert_relative_eq!(out.lack_of_fit_percent, h[h.len() - 1], max_relative = 1e-12);
+}

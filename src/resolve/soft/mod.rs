@@ -946,6 +946,24 @@ pub fn concentration_step(
 ///
 /// # Errors
 /// [`SoftError`] naming the setting, sample or species at fault; LAPACK failures.
+///
+/// # Examples
+/// ```
+/// use isosbestic::resolve::soft::{resolve_matrix, SampleLayout, SoftParams, SoftTermination};
+/// use ndarray::array;
+/// // species 0 alone in sample 0 and at wavelength 0, species 1 alone in sample 3 and at
+/// // wavelength 2: the resolution is unique up to scale
+/// let c = array![[1.0, 0.0], [0.7, 0.3], [0.3, 0.7], [0.0, 1.0]];
+/// let s = array![[2.0, 0.0], [1.0, 1.0], [0.0, 3.0]];
+/// let d = c.dot(&s.t());
+/// let out = resolve_matrix(d.view(), &SampleLayout::single_series(4), &SoftParams::default().check()?)?;
+/// assert_eq!(out.termination, SoftTermination::Converged);
+/// // the resolved profiles are proportional to the true ones: c₁/c₀ in sample 1 is 0.3/0.7
+/// let ratio = out.concentrations[[1, 1]] / out.concentrations[[1, 0]];
+/// let ratio_true_scaled = (0.3 / 0.7) * (out.concentrations[[3, 1]] / out.concentrations[[0, 0]]);
+/// approx::assert_relative_eq!(ratio, ratio_true_scaled, max_relative = 1e-6);
+/// # Ok::<(), isosbestic::resolve::soft::SoftError>(())
+/// ```
 pub fn resolve_matrix(
     d: ArrayView2<f64>,
     layout: &SampleLayout,
@@ -1068,6 +1086,31 @@ pub fn resolve_matrix(
 ///
 /// # Errors
 /// As [`resolve_matrix`].
+///
+/// # Examples
+/// ```
+/// use isosbestic::data::{Sample, SpectraSet};
+/// use isosbestic::resolve::soft::{resolve, Closure, SoftParams};
+/// use ndarray::array;
+/// // A ⇌ B with total 0.01 mol/L; A absorbs at 400 nm only, B at 600 nm only (ε 100 and 50)
+/// let frac_b = [0.1, 0.4, 0.8];
+/// let d = ndarray::Array2::from_shape_fn((3, 3), |(i, j)| {
+///     let (a, b) = (0.01 * (1.0 - frac_b[i]), 0.01 * frac_b[i]);
+///     [100.0 * a, 60.0 * a + 20.0 * b, 50.0 * b][j]
+/// });
+/// let samples = (0..3)
+///     .map(|i| Sample::new(format!("s{i}"), "one", 290.0 + 10.0 * i as f64, 1.0).with_total("A", 0.01))
+///     .collect();
+/// let set = SpectraSet::new(array![400.0, 500.0, 600.0], d, samples, vec!["A".into()])?;
+/// let closure = Closure { components: vec!["A".into()], counts: vec![vec![1.0], vec![1.0]], weight: 1e6 };
+/// let params = SoftParams { closure: Some(closure), tolerance: 1e-12, ..SoftParams::default() }.check()?;
+/// let out = resolve(&set, &params)?;
+/// for i in 0..3 {
+///     // closure: [A] + [B] = 0.01 mol/L in every sample
+///     approx::assert_relative_eq!(out.concentrations.row(i).sum(), 0.01, max_relative = 1e-10);
+/// }
+/// # Ok::<(), Box<dyn std::error::Error>>(())
+/// ```
 pub fn resolve(set: &SpectraSet, params: &ValidSoftParams) -> Result<SoftResolution, SoftError> {
     let ids = set.measurement_ids();
     let measured = if ids.len() == set.n_samples() {
