@@ -10,6 +10,7 @@
 pub mod classic;
 pub mod linear;
 pub mod lm;
+pub mod soft;
 
 pub use classic::ClassicError;
 pub mod hard;
