@@ -36,6 +36,9 @@ pub enum Error {
     /// The global fit could not be run.
     #[error(transparent)]
     HardFit(#[from] crate::resolve::hard::HardFitError),
+    /// Soft resolution failed.
+    #[error(transparent)]
+    Soft(#[from] crate::resolve::soft::SoftError),
     /// A simulation could not be run.
     #[error(transparent)]
     Simulation(#[from] crate::simulate::SimulationError),

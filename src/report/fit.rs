@@ -112,6 +112,20 @@ pub enum Diagnostic {
         /// Columns (absorbing species × spectra temperature terms).
         columns: usize,
     },
+    /// A distinct second solution fits almost as well (e.g. metal and complex swapped).
+    Ambiguous {
+        /// Its parameter values.
+        parameters: Vec<f64>,
+        /// Its Δχ² against the reported solution.
+        delta_chi2: f64,
+        /// Whether a declared ε ceiling chose the reported solution.
+        chosen_by_prior: bool,
+    },
+    /// A fitted spectrum breaks a declared ε ceiling.
+    CeilingBroken {
+        /// Which species and by how much.
+        detail: String,
+    },
     /// The residuals have structure: their largest singular value stands above the noise edge.
     StructuredResiduals {
         /// Largest singular value of the residual matrix.
@@ -151,6 +165,30 @@ impl fmt::Display for Diagnostic {
                 f,
                 "the concentration profiles span only {rank} of {columns} dimensions: some pure spectra are not determined"
             ),
+            Self::Ambiguous {
+                parameters,
+                delta_chi2,
+                chosen_by_prior,
+            } => {
+                write!(
+                    f,
+                    "a second solution {parameters:?} fits almost as well (Δχ² = {delta_chi2:.3}); "
+                )?;
+                if *chosen_by_prior {
+                    write!(
+                        f,
+                        "the reported one was chosen because the other breaks a declared ε ceiling"
+                    )
+                } else {
+                    write!(
+                        f,
+                        "the data cannot decide: declare a weak absorber's ε ceiling (max_absorptivity), a known spectrum, or measure several ligand levels"
+                    )
+                }
+            }
+            Self::CeilingBroken { detail } => {
+                write!(f, "fitted spectrum breaks its declared ceiling: {detail}")
+            }
             Self::StructuredResiduals {
                 first_singular_value,
                 noise_edge,
@@ -238,6 +276,16 @@ pub fn diagnose(set: &SpectraSet, fit: &HardFit, params: &HardFitParams) -> Vec<
     }
     for p in &fit.at_bounds {
         out.push(Diagnostic::AtBound { parameter: p.clone() });
+    }
+    for a in &fit.alternatives {
+        out.push(Diagnostic::Ambiguous {
+            parameters: a.parameters.clone(),
+            delta_chi2: a.delta_chi2,
+            chosen_by_prior: a.chosen_by_prior,
+        });
+    }
+    for c in &fit.ceiling_violations {
+        out.push(Diagnostic::CeilingBroken { detail: c.clone() });
     }
     let n = fit.parameters.len();
     for a in 0..n {

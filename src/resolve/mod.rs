@@ -4,8 +4,9 @@
 //! - [`lm`]: Levenberg–Marquardt as an argmin solver.
 //! - [`classic`]: the textbook two-wavelength route (direct Beer–Lambert and mass-balance
 //!   estimates of a two-absorber equilibrium), kept for comparison with the full-spectrum fits.
-//!
-//! Soft resolution (MCR-ALS) is not written yet (see the issues).
+//! - [`soft`]: soft resolution, MCR-ALS with constraints, band boundaries and a hybrid
+//!   hard–soft option.
+//! - [`hard`]: the global model fit (variable projection).
 
 pub mod classic;
 pub mod linear;
