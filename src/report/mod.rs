@@ -2,5 +2,7 @@
 //! atomically (temporary file, then rename).
 
 pub mod atomic;
+pub mod html;
 pub mod inspect;
+pub mod plots;
 pub mod tables;
