@@ -194,8 +194,10 @@ fn the_report_renders_in_headless_chromium() {
         "screenshot missing or nearly empty ({size} bytes); chromium said: {}",
         String::from_utf8_lossy(&out.stderr)
     );
+    // for looking at the result by eye: copy the page and the screenshot out of the temp dir
     if let Ok(keep) = std::env::var("ISOSBESTIC_KEEP_SCREENSHOT") {
-        std::fs::copy(&shot, keep).unwrap();
+        std::fs::copy(&shot, &keep).unwrap();
+        std::fs::copy(&report, format!("{keep}.html")).unwrap();
     }
     let profile2 = tempfile::tempdir().unwrap();
     let out = run_chromium(&[

@@ -231,12 +231,12 @@ impl Default for Palette {
             diverging_scale: [Rgb(35, 120, 140), Rgb(246, 245, 239), Rgb(190, 86, 46)],
             band_opacity: 0.22,
             font_family: "sans-serif".to_string(),
-            title_size: 20,
-            label_size: 16,
-            tick_size: 13,
+            title_size: 24,
+            label_size: 19,
+            tick_size: 16,
             line_width: 2,
             marker_size: 4,
-            size: (820, 520),
+            size: (960, 560),
         }
     }
 }
@@ -399,6 +399,17 @@ fn padded_range(values: impl Iterator<Item = f64>, pad: f64) -> Range<f64> {
         return (lo - half)..(hi + half);
     }
     (lo - pad * span)..(hi + pad * span)
+}
+
+/// Extends the top of `y` so that a legend of `entries` lines (or a colour bar of the same
+/// height) in the upper corner of the plotting area does not cover the data.
+fn with_headroom(y: Range<f64>, entries: usize, palette: &Palette) -> Range<f64> {
+    // plotting-area height: figure height less caption, tick labels and axis description
+    let plot_px = f64::from(palette.size.1.saturating_sub(140).max(100));
+    let legend_px = 14.0 + 1.45 * f64::from(palette.tick_size) * entries as f64;
+    let f = (legend_px / plot_px).min(0.6);
+    let span = y.end - y.start;
+    y.start..(y.end + f * span / (1.0 - f))
 }
 
 /// Compact tick text: up to four significant digits, scientific for very small or large values,
@@ -631,7 +642,7 @@ pub fn measured_spectra(
         }
     };
     let x = padded_range(wavelengths_nm.iter().copied(), 0.0);
-    let y = padded_range(absorbance.iter().copied(), 0.05);
+    let y = with_headroom(padded_range(absorbance.iter().copied(), 0.05), 3, palette);
     let (xs, ys) = (x.end - x.start, y.end - y.start);
     render(PLOT, palette, |root| {
         let axes = Axes {
@@ -737,7 +748,8 @@ pub fn pure_spectra(
         extremes.push(v + band(i, k));
     }
     let x = padded_range(wavelengths_nm.iter().copied(), 0.0);
-    let y = padded_range(extremes.into_iter(), 0.05);
+    let entries = species.len() + usize::from(standard_errors.is_some());
+    let y = with_headroom(padded_range(extremes.into_iter(), 0.05), entries, palette);
     let (xs, ys) = (x.end - x.start, y.end - y.start);
     render(PLOT, palette, |root| {
         let axes = Axes {
@@ -895,12 +907,16 @@ pub fn concentration_profiles(
         check_2d(PLOT, "concentrations", s.concentrations)?;
     }
     let x = padded_range(series.iter().flat_map(|s| s.temperatures_c.iter().copied()), 0.04);
-    let y = padded_range(
-        series
-            .iter()
-            .flat_map(|s| s.concentrations.iter().copied())
-            .chain(std::iter::once(0.0)),
-        0.05,
+    let y = with_headroom(
+        padded_range(
+            series
+                .iter()
+                .flat_map(|s| s.concentrations.iter().copied())
+                .chain(std::iter::once(0.0)),
+            0.05,
+        ),
+        species.len() + series.len(),
+        palette,
     );
     let (xs, ys) = (x.end - x.start, y.end - y.start);
     render(PLOT, palette, |root| {
@@ -1094,7 +1110,8 @@ pub fn vant_hoff(
         ys_all.extend_from_slice(p.ln_k);
     }
     let x = padded_range(xs_all.into_iter(), 0.04);
-    let y = padded_range(ys_all.into_iter(), 0.06);
+    let entries = points.len() + 2 * usize::from(band.is_some());
+    let y = with_headroom(padded_range(ys_all.into_iter(), 0.06), entries, palette);
     let (xs, ys) = (x.end - x.start, y.end - y.start);
     render(PLOT, palette, |root| {
         let axes = Axes {
@@ -1329,7 +1346,7 @@ pub fn residual_map(
         // vertical colour bar right of the plotting area
         let (xr, yr) = chart.plotting_area().get_pixel_range();
         let (x0, w, steps) = (xr.end + 22, 14, 40);
-        let (top, bottom) = (yr.start + 24, yr.end - 4);
+        let (top, bottom) = (yr.start + 34, yr.end - 4);
         for i in 0..steps {
             let a = top + (bottom - top) * i / steps;
             let b = top + (bottom - top) * (i + 1) / steps;
@@ -1345,7 +1362,7 @@ pub fn residual_map(
             |s: String, y: i32| Text::new(s, (x0 + w + 4, y), small.pos(Pos::new(HPos::Left, VPos::Center)));
         root.draw(&Text::new(
             "residual / AU".to_string(),
-            (x0 - 6, top - 16),
+            (x0 - 10, top - 30),
             small.clone(),
         ))
         .map_err(draw_err(PLOT))?;
@@ -1408,7 +1425,7 @@ pub fn singular_values(
         .map(|(i, &v)| ((i + 1) as f64, v.max(floor).log10()))
         .collect();
     let x = 0.5..(values.len() as f64 + 0.5);
-    let y = padded_range(pts.iter().map(|p| p.1), 0.08);
+    let y = with_headroom(padded_range(pts.iter().map(|p| p.1), 0.08), 2, palette);
     let ys = y.end - y.start;
     let int_tick = |v: &f64| {
         if (v - v.round()).abs() < 1e-9 && *v >= 1.0 {
@@ -1511,7 +1528,11 @@ pub fn evolving_factors(
     check_2d(PLOT, "backward", backward)?;
     let n = temperatures_c.len();
     let x = -0.3..(n as f64 - 0.7);
-    let y = padded_range(forward.iter().chain(backward.iter()).copied(), 0.06);
+    let y = with_headroom(
+        padded_range(forward.iter().chain(backward.iter()).copied(), 0.06),
+        2 * forward.ncols(),
+        palette,
+    );
     let ys = y.end - y.start;
     let t_tick = |v: &f64| {
         let r = v.round();
