@@ -8,10 +8,10 @@
 //! # Examples
 //! ```
 //! use isosbestic::report::html::{render_report, Generation, Section, SummaryRow};
-//! let gen = Generation::new("2026-01-01T12:00:00Z");
+//! let generation = Generation::new("2026-01-01T12:00:00Z");
 //! let section = Section::new("Global fit")
 //!     .with_row(SummaryRow::new("ΔH°", "-12.3", Some("0.4"), "kJ/mol"));
-//! let page = render_report("Demo <run>", &gen, &[section]);
+//! let page = render_report("Demo <run>", &generation, &[section]);
 //! assert!(page.starts_with("<!DOCTYPE html>"));
 //! assert!(page.contains("<h2>Global fit</h2>"));
 //! assert!(page.contains("Demo &lt;run&gt;"));

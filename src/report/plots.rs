@@ -940,7 +940,7 @@ pub fn concentration_profiles(
         for (si, s) in series.iter().enumerate() {
             let mut order: Vec<usize> = (0..s.temperatures_c.len()).collect();
             order.sort_by(|&a, &b| s.temperatures_c[a].total_cmp(&s.temperatures_c[b]));
-            for k in 0..species.len() {
+            for (k, name) in species.iter().enumerate() {
                 let colour = palette.category(k);
                 let pts: Vec<(f64, f64)> = order
                     .iter()
@@ -951,7 +951,7 @@ pub fn concentration_profiles(
                     .map_err(draw_err(PLOT))?;
                 if si == 0 {
                     let style = line_style(colour, palette);
-                    ann.label(species[k])
+                    ann.label(*name)
                         .legend(move |(x, y)| PathElement::new(vec![(x, y), (x + 18, y)], style));
                 }
                 draw_markers(PLOT, &mut chart, &pts, Marker::nth(si), colour, None, palette)?;
