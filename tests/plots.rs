@@ -471,3 +471,54 @@ fn convenience_functions_plot_the_crates_result_types_and_files_are_written() {
         Err(PlotError::Missing { .. })
     ));
 }
+
+mod properties {
+    use super::*;
+    use proptest::prelude::*;
+
+    fn magnitude() -> impl Strategy<Value = f64> {
+        prop_oneof![-1e6..1e6_f64, -1e-9..1e-9_f64, Just(0.0), -1e300..1e300_f64]
+    }
+
+    proptest! {
+        #![proptest_config(ProptestConfig::with_cases(24))]
+
+        /// Any finite data, tiny, flat or huge, gives a well-formed SVG with finite coordinates.
+        #[test]
+        fn any_finite_spectra_give_a_well_formed_svg(
+            n in 1usize..5,
+            values in proptest::collection::vec(magnitude(), 12),
+            temps in proptest::collection::vec(-20.0..150.0_f64, 5),
+        ) {
+            let wl = wavelengths(3);
+            let a = Array2::from_shape_fn((n, 3), |(i, j)| values[(3 * i + j) % values.len()]);
+            let p = Palette::default();
+            let svg = measured_spectra("any", &wl, a.view(), &temps[..n], &p).unwrap();
+            assert_well_formed_svg(&svg);
+            prop_assert!(!svg.contains("NaN") && !svg.contains("inf"));
+            let r = residual_map("any", &wl, &vec!["s"; n], a.view(), &p).unwrap();
+            assert_well_formed_svg(&r);
+            prop_assert!(!r.contains("NaN") && !r.contains("inf"));
+            let sv: Vec<f64> = values.iter().map(|v| v.abs()).collect();
+            if sv.iter().any(|&v| v > 0.0) {
+                let s = singular_values("any", &sv, Some(1), &p).unwrap();
+                assert_well_formed_svg(&s);
+                prop_assert!(!s.contains("NaN"));
+            }
+        }
+
+        /// Escaping leaves no markup characters and is undone by the five references.
+        #[test]
+        fn escaping_removes_markup_and_round_trips(text in "\\PC{0,40}") {
+            let e = isosbestic::report::html::escape(&text);
+            prop_assert!(!e.contains('<') && !e.contains('>') && !e.contains('"') && !e.contains('\''));
+            let back = e
+                .replace("&lt;", "<")
+                .replace("&gt;", ">")
+                .replace("&quot;", "\"")
+                .replace("&#39;", "'")
+                .replace("&amp;", "&");
+            prop_assert_eq!(back, text);
+        }
+    }
+}
