@@ -447,6 +447,28 @@ fn convenience_functions_plot_the_crates_result_types_and_files_are_written() {
     };
     let vh = vant_hoff_of(&vf, "ln K per temperature", &[classic], &p).unwrap();
     assert!(vh.contains("95 % confidence band") && vh.contains("classic estimates"));
+    // summary rows for the HTML report carry the fit's numbers, rounded by the GUM rule
+    let rows = isosbestic::report::html::hard_fit_rows(&hard);
+    let dh = hard.parameter("MX", "dh_ref").unwrap();
+    let row = rows.iter().find(|r| r.label == "dh_ref of MX").unwrap();
+    let (v, u) = isosbestic::report::html::format_with_uncertainty(dh.value, dh.standard_error);
+    assert_eq!((&row.value, &row.uncertainty), (&v, &u));
+    assert!(rows.iter().any(|r| r.label.starts_with("ΔH° of MX at")));
+    let report = isosbestic::report::inspect::inspect(set, &Default::default()).unwrap();
+    let irows = isosbestic::report::html::inspect_rows(&report);
+    let rank = irows
+        .iter()
+        .find(|r| r.label.starts_with("rank estimate"))
+        .unwrap();
+    assert_eq!(rank.value, report.factor.rank.chosen.to_string());
+    assert!(
+        irows
+            .iter()
+            .any(|r| r.label == "series X0.3" && r.value.starts_with("4 samples, 10.0 to 70.0"))
+    );
+    let vrows = isosbestic::report::html::vant_hoff_rows(&vf);
+    assert_eq!(vrows[0].label, "ΔH°");
+    assert_eq!(vrows[0].unit, "kJ/mol");
     let dir = tempfile::tempdir().unwrap();
     for (name, svg) in [
         ("spectra", &spectra),

@@ -19,6 +19,10 @@
 
 use std::fmt::Write as _;
 
+use crate::report::inspect::InspectReport;
+use crate::resolve::hard::HardFit;
+use crate::thermo::VanThoffFit;
+
 /// Escapes text for HTML element content and quoted attribute values: `&`, `<`, `>`, `"` and
 /// `'` become character references.
 ///
@@ -72,6 +76,226 @@ impl SummaryRow {
             unit: unit.into(),
         }
     }
+}
+
+/// Formats a value and its standard error for a table: the standard error to two significant
+/// digits and the value to the same decimal place (the GUM, JCGM 100:2008 §7.2.6, advises at
+/// most two significant digits for a standard uncertainty). Very large or small magnitudes use
+/// a shared-style exponent notation. A standard error that is zero, negative or not finite
+/// gives the value to six significant digits and no uncertainty.
+///
+/// # Examples
+/// ```
+/// use isosbestic::report::html::format_with_uncertainty;
+/// assert_eq!(format_with_uncertainty(-12345.678, 432.1), ("-12350".into(), Some("430".into())));
+/// assert_eq!(format_with_uncertainty(1.23456, 0.01234), ("1.235".into(), Some("0.012".into())));
+/// assert_eq!(format_with_uncertainty(2.5, f64::NAN), ("2.5".into(), None));
+/// ```
+pub fn format_with_uncertainty(value: f64, standard_error: f64) -> (String, Option<String>) {
+    if !value.is_finite() {
+        return (format!("{value}"), None);
+    }
+    let sci = |v: f64| v != 0.0 && !(1e-4..1e7).contains(&v.abs());
+    if !(standard_error.is_finite() && standard_error > 0.0) {
+        return (six_significant(value), None);
+    }
+    // position of the second significant digit of the standard error
+    let d = standard_error.log10().floor() as i32 - 1;
+    if sci(value) || sci(standard_error) {
+        let e = if value == 0.0 {
+            d + 1
+        } else {
+            value.abs().log10().floor() as i32
+        };
+        let digits = (e - d).clamp(1, 15) as usize;
+        return (
+            format!("{value:.digits$e}"),
+            Some(format!("{standard_error:.1e}")),
+        );
+    }
+    if d >= 0 {
+        let q = 10f64.powi(d);
+        let r = |v: f64| format!("{:.0}", (v / q).round() * q);
+        (r(value), Some(r(standard_error)))
+    } else {
+        let decimals = (-d) as usize;
+        (
+            format!("{value:.decimals$}"),
+            Some(format!("{standard_error:.decimals$}")),
+        )
+    }
+}
+
+fn six_significant(v: f64) -> String {
+    if v == 0.0 {
+        return "0".to_string();
+    }
+    if !(1e-4..1e7).contains(&v.abs()) {
+        return format!("{v:.5e}");
+    }
+    let decimals = (5 - v.abs().log10().floor() as i32).max(0) as usize;
+    let mut s = format!("{v:.decimals$}");
+    if s.contains('.') {
+        while s.ends_with('0') {
+            s.pop();
+        }
+        if s.ends_with('.') {
+            s.pop();
+        }
+    }
+    s
+}
+
+/// Summary rows of a global fit: every fitted parameter with its standard error and unit, the
+/// standard quantities ΔH°, ΔS° (and ΔCp° when fitted) per species at their reference
+/// temperature, and the main diagnostics (residual standard deviation, degrees of freedom,
+/// iterations, termination).
+pub fn hard_fit_rows(fit: &HardFit) -> Vec<SummaryRow> {
+    let mut rows = Vec::new();
+    for p in &fit.parameters {
+        let (v, u) = format_with_uncertainty(p.value, p.standard_error);
+        rows.push(SummaryRow {
+            label: format!("{} of {}", p.parameter.name, p.parameter.species_name),
+            value: v,
+            uncertainty: u,
+            unit: p.parameter.unit.clone(),
+        });
+    }
+    for t in &fit.thermodynamics {
+        let q = &t.standard;
+        let se = q.standard_errors();
+        let at = format!("{} at {:.2} K", t.species, q.t_ref_k);
+        let mut push = |name: &str, value: f64, se: f64, unit: &str| {
+            let (v, u) = format_with_uncertainty(value, se);
+            rows.push(SummaryRow {
+                label: format!("{name} of {at}"),
+                value: v,
+                uncertainty: u,
+                unit: unit.to_string(),
+            });
+        };
+        push("ΔH°", q.dh_j_mol / 1e3, se[1] / 1e3, "kJ/mol");
+        push("ΔS°", q.ds_j_k_mol, se[2], "J/(K mol)");
+        if se[3] > 0.0 || q.dcp_j_k_mol != 0.0 {
+            push("ΔCp°", q.dcp_j_k_mol, se[3], "J/(K mol)");
+        }
+    }
+    let (sd, _) = format_with_uncertainty(fit.residual_sd, f64::NAN);
+    rows.push(SummaryRow::new("residual standard deviation", sd, None, "AU"));
+    rows.push(SummaryRow::new(
+        "degrees of freedom",
+        fit.degrees_of_freedom.to_string(),
+        None,
+        "",
+    ));
+    rows.push(SummaryRow::new(
+        "iterations",
+        fit.iterations.to_string(),
+        None,
+        "",
+    ));
+    rows.push(SummaryRow::new(
+        "solver stopped",
+        format!("{:?}", fit.termination),
+        None,
+        "",
+    ));
+    rows
+}
+
+/// Summary rows of a van 't Hoff fit: ΔH°, ΔS° (and ΔCp°) with standard errors, the number of
+/// points and the reduced χ² when defined.
+pub fn vant_hoff_rows(fit: &VanThoffFit) -> Vec<SummaryRow> {
+    let mut rows = Vec::new();
+    let mut push = |label: &str, value: f64, se: f64, unit: &str| {
+        let (v, u) = format_with_uncertainty(value, se);
+        rows.push(SummaryRow {
+            label: label.to_string(),
+            value: v,
+            uncertainty: u,
+            unit: unit.to_string(),
+        });
+    };
+    push(
+        "ΔH°",
+        fit.delta_h_j_per_mol.value / 1e3,
+        fit.delta_h_j_per_mol.std_error / 1e3,
+        "kJ/mol",
+    );
+    push(
+        "ΔS°",
+        fit.delta_s_j_per_k_mol.value,
+        fit.delta_s_j_per_k_mol.std_error,
+        "J/(K mol)",
+    );
+    if let Some(cp) = fit.delta_cp_j_per_k_mol {
+        push("ΔCp°", cp.value, cp.std_error, "J/(K mol)");
+    }
+    rows.push(SummaryRow::new("points", fit.n_points.to_string(), None, ""));
+    if let Some(chi) = fit.reduced_chi_squared {
+        rows.push(SummaryRow::new("reduced χ²", six_significant(chi), None, ""));
+    }
+    rows
+}
+
+/// Summary rows of an inspection: samples, blanks, series with their temperature ranges,
+/// wavelength and absorbance ranges, masked points, the rank estimate and the noise level.
+pub fn inspect_rows(report: &InspectReport) -> Vec<SummaryRow> {
+    let mut rows = vec![
+        SummaryRow::new("samples", report.samples.to_string(), None, ""),
+        SummaryRow::new("blanks", report.blanks.to_string(), None, ""),
+        SummaryRow::new("components", report.components.join(", "), None, ""),
+    ];
+    for s in &report.series {
+        rows.push(SummaryRow::new(
+            format!("series {}", s.label),
+            format!(
+                "{} samples, {:.1} to {:.1}",
+                s.samples, s.min_temperature_c, s.max_temperature_c
+            ),
+            None,
+            "°C",
+        ));
+    }
+    rows.push(SummaryRow::new(
+        "wavelengths",
+        format!(
+            "{} points, {:.1} to {:.1}",
+            report.wavelengths, report.wavelength_range_nm[0], report.wavelength_range_nm[1]
+        ),
+        None,
+        "nm",
+    ));
+    rows.push(SummaryRow::new(
+        "absorbance range",
+        format!(
+            "{:.4} to {:.4}",
+            report.absorbance_range[0], report.absorbance_range[1]
+        ),
+        None,
+        "AU",
+    ));
+    rows.push(SummaryRow::new(
+        "masked points",
+        report.masked_points.to_string(),
+        None,
+        "",
+    ));
+    rows.push(SummaryRow::new(
+        "rank estimate (absorbing species)",
+        report.factor.rank.chosen.to_string(),
+        None,
+        "",
+    ));
+    if let Some(noise) = report.factor.noise_estimate_at_rank {
+        rows.push(SummaryRow::new(
+            "noise estimate at that rank",
+            six_significant(noise),
+            None,
+            "AU",
+        ));
+    }
+    rows
 }
 
 /// An SVG plot with a caption.
@@ -335,6 +559,30 @@ mod tests {
         }
         let ok = inline_svg("<svg xmlns=\"http://www.w3.org/2000/svg\" width=\"3\"><text>one</text></svg>");
         assert_eq!(ok.as_deref(), Some("<svg width=\"3\"><text>one</text></svg>"));
+    }
+
+    #[test]
+    fn uncertainties_round_to_two_significant_digits() {
+        // GUM (JCGM 100:2008) §7.2.6: at most two significant digits for the uncertainty
+        assert_eq!(
+            format_with_uncertainty(0.0, 0.0034),
+            ("0.0000".into(), Some("0.0034".into()))
+        );
+        assert_eq!(
+            format_with_uncertainty(58.234, 2.1),
+            ("58.2".into(), Some("2.1".into()))
+        );
+        assert_eq!(
+            format_with_uncertainty(58.234, 21.0),
+            ("58".into(), Some("21".into()))
+        );
+        assert_eq!(
+            format_with_uncertainty(3.2e-6, 1.5e-7),
+            ("3.20e-6".into(), Some("1.5e-7".into()))
+        );
+        assert_eq!(format_with_uncertainty(f64::INFINITY, 1.0).1, None);
+        assert_eq!(six_significant(1234.5678), "1234.57");
+        assert_eq!(six_significant(1.0), "1");
     }
 
     #[test]
