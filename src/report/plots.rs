@@ -128,6 +128,14 @@ pub enum PlotError {
         /// What is missing.
         reason: &'static str,
     },
+    /// The confidence band of a van 't Hoff fit could not be computed.
+    #[error("{plot}: cannot compute the confidence band: {source}")]
+    Band {
+        /// The plot being drawn.
+        plot: &'static str,
+        /// The error from the van 't Hoff fit.
+        source: crate::thermo::ThermoError,
+    },
     /// The drawing library reported an error.
     #[error("{plot}: drawing failed: {message}")]
     Drawing {
@@ -1191,7 +1199,7 @@ pub fn vant_hoff(
 /// (e.g. classic estimates).
 ///
 /// # Errors
-/// As [`vant_hoff`]; [`PlotError::Drawing`] if the band cannot be computed.
+/// As [`vant_hoff`]; [`PlotError::Band`] if the band cannot be computed.
 pub fn vant_hoff_of(
     fit: &VanThoffFit,
     points_label: &str,
@@ -1210,10 +1218,9 @@ pub fn vant_hoff_of(
     let grid: Vec<f64> = (0..n)
         .map(|i| lo + (hi - lo) * i as f64 / (n - 1) as f64)
         .collect();
-    let band = fit.band(&grid, 0.95).map_err(|e| PlotError::Drawing {
-        plot: PLOT,
-        message: e.to_string(),
-    })?;
+    let band = fit
+        .band(&grid, 0.95)
+        .map_err(|source| PlotError::Band { plot: PLOT, source })?;
     let t: Vec<f64> = band.iter().map(|b| b.temperature_k).collect();
     let l: Vec<f64> = band.iter().map(|b| b.ln_k).collect();
     let lower: Vec<f64> = band.iter().map(|b| b.lower).collect();
