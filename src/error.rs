@@ -39,6 +39,9 @@ pub enum Error {
     /// Soft resolution failed.
     #[error(transparent)]
     Soft(#[from] crate::resolve::soft::SoftError),
+    /// A plot could not be drawn or written.
+    #[error(transparent)]
+    Plot(#[from] crate::report::plots::PlotError),
     /// A simulation could not be run.
     #[error(transparent)]
     Simulation(#[from] crate::simulate::SimulationError),

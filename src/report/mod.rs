@@ -1,7 +1,9 @@
-//! Reports: result types, CSV/JSON writers and SVG plots. Writers never print; they write files
-//! atomically (temporary file, then rename).
+//! Reports: result types, CSV/JSON writers, SVG plots and the HTML page. Writers never print;
+//! they write files atomically (temporary file, then rename).
 
 pub mod atomic;
 pub mod fit;
+pub mod html;
 pub mod inspect;
+pub mod plots;
 pub mod tables;
