@@ -459,6 +459,86 @@ pub fn write_fit_outputs(dir: &Path, report: &FitReport, force: bool) -> Result<
     Ok(targets)
 }
 
+/// Names of the figures and page [`write_fit_page`] writes.
+pub const FIT_PAGE_OUTPUTS: [&str; 6] = [
+    "report.html",
+    "measured_spectra.svg",
+    "pure_spectra.svg",
+    "concentration_profiles.svg",
+    "residual_map.svg",
+    "singular_values.svg",
+];
+
+/// Writes the SVG figures and the self-contained `report.html` of a fit into `dir`.
+///
+/// `set` is the preprocessed set the fit was made on; `timestamp` is shown in the page header
+/// (the library reads no clock).
+///
+/// # Errors
+/// [`Error::WouldOverwrite`], [`Error::Plot`] or [`Error::Output`].
+pub fn write_fit_page(dir: &Path, report: &FitReport, set: &SpectraSet, timestamp: &str, force: bool) -> Result<Vec<PathBuf>> {
+    use crate::report::html::{Generation, Section, hard_fit_rows, render_report};
+    use crate::report::plots::{self, Palette};
+    let targets: Vec<PathBuf> = FIT_PAGE_OUTPUTS.iter().map(|n| dir.join(n)).collect();
+    guard_outputs(&targets, &report.inputs, force)?;
+    let palette = Palette::default();
+    let measured = plots::measured_spectra_of(set, &palette)?;
+    let pure = plots::pure_spectra_of(&report.fit, &report.wavelengths_nm, &palette)?;
+    let profiles = plots::concentration_profiles_of(&report.fit, set, &palette)?;
+    let residuals = hard::residual_matrix(set, &report.fit, &report.config.fit);
+    let labels: Vec<&str> = report.sample_ids.iter().map(String::as_str).collect();
+    let residual_map = plots::residual_map(
+        "Residuals (measured − fitted)",
+        &report.wavelengths_nm,
+        &labels,
+        residuals.view(),
+        &palette,
+    )?;
+    let sv = plots::singular_values(
+        "Singular values of the residual matrix",
+        &report.fit.residual_singular_values,
+        None,
+        &palette,
+    )?;
+    let figures = [&measured, &pure, &profiles, &residual_map, &sv];
+    for (t, svg) in targets[1..].iter().zip(figures) {
+        plots::write_svg(t, svg)?;
+    }
+    let mut generation = Generation::new(timestamp).with_detail("software", report.software.clone());
+    for i in &report.inputs {
+        generation = generation.with_detail(i.path.display().to_string(), format!("sha256 {}", i.sha256));
+    }
+    let mut fit_section = Section::new("Global fit");
+    for row in hard_fit_rows(&report.fit) {
+        fit_section = fit_section.with_row(row);
+    }
+    fit_section = fit_section.with_note(format!(
+        "{} samples × {} wavelengths; residual sd {:.3e} AU (ν = {}); solver: {:?} after {} iterations.",
+        report.sample_ids.len(),
+        report.wavelengths_nm.len(),
+        report.fit.residual_sd,
+        report.fit.degrees_of_freedom,
+        report.fit.termination,
+        report.fit.iterations
+    ));
+    for d in &report.diagnostics {
+        fit_section = fit_section.with_note(format!("Note: {d}"));
+    }
+    let sections = [
+        Section::new("Measured spectra").with_figure("Measured spectra coloured by temperature", measured),
+        fit_section
+            .with_figure("Resolved pure spectra with ±2σ bands", pure)
+            .with_figure("Concentration profiles against temperature, per series", profiles),
+        Section::new("Residuals")
+            .with_figure("Residual map (wavelength × sample)", residual_map)
+            .with_figure("Singular values of the residual matrix: structure stands out above the noise floor", sv),
+    ];
+    let page = render_report("isosbestic global fit", &generation, &sections);
+    crate::report::atomic::write_atomic(&targets[0], page.as_bytes())
+        .map_err(|source| Error::Output { path: targets[0].clone(), source })?;
+    Ok(targets)
+}
+
 /// Refuses outputs that would overwrite an input, or an earlier output without `force`.
 ///
 /// # Errors

@@ -1004,11 +1004,18 @@ pub fn concentration_profiles_of(
             groups.entry(s.series.as_str()).or_default().push(i);
         }
     }
+    // Absorbing species only: a ligand in large excess would flatten every other profile.
+    let cols: Vec<usize> = fit
+        .absorbing_species
+        .iter()
+        .filter_map(|name| fit.species.iter().position(|s| s == name))
+        .collect();
     let data: Vec<(&str, Vec<f64>, Array2<f64>)> = groups
         .into_iter()
         .map(|(label, rows)| {
             let t = rows.iter().map(|&i| set.samples()[i].temperature_c()).collect();
-            (label, t, fit.concentrations.select(ndarray::Axis(0), &rows))
+            let c = fit.concentrations.select(ndarray::Axis(0), &rows).select(ndarray::Axis(1), &cols);
+            (label, t, c)
         })
         .collect();
     let series: Vec<ProfileSeries<'_>> = data
@@ -1019,8 +1026,8 @@ pub fn concentration_profiles_of(
             concentrations: c.view(),
         })
         .collect();
-    let names: Vec<&str> = fit.species.iter().map(String::as_str).collect();
-    concentration_profiles("Concentration profiles", &series, &names, palette)
+    let names: Vec<&str> = fit.absorbing_species.iter().map(String::as_str).collect();
+    concentration_profiles("Concentration profiles of the absorbing species", &series, &names, palette)
 }
 
 // ---------------------------------------------------------------------------------------------

@@ -2,7 +2,7 @@
 
 use crate::input::DataArgs;
 use clap::{Args, ValueEnum};
-use isosbestic::report::fit::{FitRunConfig, run_fit, write_fit_outputs};
+use isosbestic::report::fit::{FitRunConfig, run_fit, write_fit_outputs, write_fit_page};
 use isosbestic::resolve::hard::{Baseline, ConcentrationBasis, SpectraTemperature};
 use isosbestic::thermo::SolventDensity;
 use std::path::PathBuf;
@@ -140,8 +140,9 @@ fn config_from(args: &FitArgs) -> isosbestic::Result<FitRunConfig> {
 
 pub fn run(args: &FitArgs) -> isosbestic::Result<ExitCode> {
     let config = config_from(args)?;
-    let (report, _) = run_fit(&config)?;
+    let (report, set) = run_fit(&config)?;
     write_fit_outputs(&args.out, &report, args.force)?;
+    write_fit_page(&args.out, &report, &set, &crate::utc_timestamp(), args.force)?;
     if args.json {
         let doc = isosbestic::report::tables::to_json_document("fit-report", &report);
         println!("{}", serde_json::to_string_pretty(&doc).unwrap_or_default());

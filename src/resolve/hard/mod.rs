@@ -660,6 +660,37 @@ pub fn fit(set: &SpectraSet, model: &ValidModel, params: &HardFitParams) -> Resu
     Ok(fit)
 }
 
+/// The residual matrix (samples × wavelengths) of a fit: (D − X·Sᵀ)(I − P_W), i.e. the data
+/// minus the fitted spectra contributions and baselines.
+///
+/// `params` must be the settings the fit was made with (spectra temperature form, baseline).
+pub fn residual_matrix(set: &SpectraSet, fit: &HardFit, params: &HardFitParams) -> Array2<f64> {
+    let ns = set.n_samples();
+    let na = fit.absorbing_species.len();
+    let order = params.spectra_temperature.order();
+    let cols: Vec<usize> = fit
+        .absorbing_species
+        .iter()
+        .filter_map(|name| fit.species.iter().position(|s| s == name))
+        .collect();
+    let mut x = Array2::zeros((ns, na * (order + 1)));
+    for (i, sample) in set.samples().iter().enumerate() {
+        let dt = sample.temperature_k - params.spectra_temperature.reference_k();
+        let mut w = sample.path_cm;
+        for o in 0..=order {
+            for (a, &k) in cols.iter().enumerate() {
+                x[[i, o * na + a]] = w * fit.concentrations[[i, k]];
+            }
+            w *= dt;
+        }
+    }
+    let r = set.absorbance() - &x.dot(&fit.spectra.t());
+    match baseline_shapes(set.wavelengths_nm(), params.baseline) {
+        Some(w) => remove_baseline_shapes(&r, &w),
+        None => r,
+    }
+}
+
 /// Largest Δχ² at which a distinct second solution is reported as an alternative.
 pub const MIRROR_DELTA_CHI2: f64 = 25.0;
 
