@@ -118,6 +118,105 @@ fn nominal_95_percent_intervals_for_dh_and_ds_cover_the_truth_92_to_98_percent_o
     }
 }
 
+/// M + X ⇌ MX, M + 2X ⇌ MX2 (stepwise, invented), van 't Hoff laws.
+fn stepwise(lb1: f64, dh1: f64, lb2: f64, dh2: f64) -> ValidModel {
+    EquilibriumModel::from_toml_str(&format!(
+        r#"
+        components = [{{ name = "M", absorbs = true }}, {{ name = "X", absorbs = false }}]
+        [[species]]
+        name = "MX"
+        stoichiometry = {{ M = 1, X = 1 }}
+        absorbs = true
+        law = {{ kind = "van_t_hoff", log_beta_ref = {{ value = {lb1} }}, dh_ref = {{ value = {dh1} }} }}
+        [[species]]
+        name = "MX2"
+        stoichiometry = {{ M = 1, X = 2 }}
+        absorbs = true
+        law = {{ kind = "van_t_hoff", log_beta_ref = {{ value = {lb2} }}, dh_ref = {{ value = {dh2} }} }}
+        "#
+    ))
+    .unwrap()
+    .check()
+    .unwrap()
+}
+
+#[test]
+fn stepwise_complexes_have_calibrated_intervals_too() {
+    // (log β, ΔH°) of MX and MX2 at 298.15 K
+    let truth_values = [(0.4, 12_000.0), (-0.2, 35_000.0)];
+    let truth = stepwise(0.4, 12_000.0, -0.2, 35_000.0);
+    let plan = |seed: u64| SimulationPlan {
+        seed,
+        first_nm: 350.0,
+        last_nm: 800.0,
+        step_nm: 7.5,
+        temperatures_c: (0..20).map(|k| 5.0 + 4.0 * f64::from(k)).collect(),
+        path_cm: 1.0,
+        preparation_temperature_c: 25.0,
+        thermal_expansion: true,
+        noise: Noise::Absorbance { sd_au: 2e-3 },
+        offset_sd_au: 0.0,
+        slope_sd_au_per_100nm: 0.0,
+        series: [0.3, 1.0, 3.0]
+            .iter()
+            .map(|&x| SeriesPlan {
+                label: format!("X{x}"),
+                totals_m: [("M".into(), 0.02), ("X".into(), x)].into(),
+            })
+            .collect(),
+        spectra: vec![
+            PureSpectrum {
+                species: "M".into(),
+                bands: vec![band(420.0, 30.0, 6.0), band(700.0, 60.0, 2.5)],
+            },
+            PureSpectrum {
+                species: "MX".into(),
+                bands: vec![band(450.0, 35.0, 18.0), band(720.0, 55.0, 9.0)],
+            },
+            PureSpectrum {
+                species: "MX2".into(),
+                bands: vec![band(480.0, 40.0, 40.0), band(650.0, 45.0, 55.0)],
+            },
+        ],
+    };
+    let params = HardFitParams {
+        concentrations: ConcentrationBasis::ThermalExpansion(SolventDensity::Water),
+        start_grid: 1,
+        ..HardFitParams::default()
+    };
+    let theta = 298.15;
+    let z = 1.959_963_984_540_054; // Φ⁻¹(0.975), standard normal table
+    let n = 400u64;
+    // per realisation: [ΔH° MX, ΔS° MX, ΔH° MX2, ΔS° MX2] covered?
+    let hits: Vec<[bool; 4]> = (0..n)
+        .into_par_iter()
+        .map(|seed| {
+            let sim = simulate(&truth, &plan(7000 + seed)).unwrap();
+            let fit = hard::fit(&sim.set, &truth, &params).unwrap();
+            assert!(fit.termination.converged());
+            let mut out = [false; 4];
+            for (k, &(lb, dh)) in truth_values.iter().enumerate() {
+                let th = &fit.thermodynamics[k].standard;
+                let se = th.standard_errors();
+                let ds = (dh + GAS_CONSTANT * theta * std::f64::consts::LN_10 * lb) / theta;
+                out[2 * k] = ((th.dh_j_mol - dh) / se[1]).abs() <= z;
+                out[2 * k + 1] = ((th.ds_j_k_mol - ds) / se[2]).abs() <= z;
+            }
+            out
+        })
+        .collect();
+    let names = ["ΔH° MX", "ΔS° MX", "ΔH° MX2", "ΔS° MX2"];
+    for (q, name) in names.iter().enumerate() {
+        let c = hits.iter().filter(|h| h[q]).count() as f64 / n as f64;
+        eprintln!(
+            "stepwise calibration over {n} realisations: coverage {name} {:.1} %",
+            100.0 * c
+        );
+        // Issue 4 §3 acceptance band.
+        assert!((0.92..=0.98).contains(&c), "{name}: coverage {c}");
+    }
+}
+
 #[test]
 fn bootstrap_spreads_match_the_spread_over_independent_noise_realisations() {
     use isosbestic::resolve::hard::bootstrap::{BootstrapKind, BootstrapOptions, bootstrap};
