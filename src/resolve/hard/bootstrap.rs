@@ -4,10 +4,11 @@
 //!
 //! ## What is resampled
 //! The fitted values D̂ and residuals E = D − D̂ are those of the full model of the fit
-//! (see [`super`]): D̂ = X(θ̂)·Ŝᵀ + A·Wᵀ, rebuilt from the [`HardFit`] (concentrations of the
-//! absorbing species, path lengths, the ε(T) blocks of [`HardFit::spectra`] and, with
-//! baselines, the per-spectrum baseline terms, which are recomputed as the projection of
-//! D − X·Ŝᵀ onto the baseline shapes — the same elimination the fit uses).
+//! (see [`super`]): D̂ = X(θ̂)·Ŝᵀ + A·Wᵀ with Ŝᵀ = X⁺D, rebuilt from the [`HardFit`]
+//! (concentrations of the absorbing species, path lengths and the ε(T) order of the settings
+//! give X) as D̂ = P_X·D + Q_X·D·P_W — the projection of D onto the range of X, plus, with
+//! baselines, the projection of the rest onto the baseline shapes (the same elimination the fit
+//! uses). Any order of [`super::SpectraTemperature`] and any [`Baseline`] is supported.
 //!
 //! Residuals of a least-squares fit are smaller than the noise: N entries carry only ν = N − p
 //! degrees of freedom (p = θ plus every linear parameter). Both schemes therefore inflate the
@@ -35,6 +36,7 @@ use super::{Baseline, HardFit, HardFitError, HardFitParams, fit};
 use crate::data::SpectraSet;
 use crate::speciation::{Law, SpeciesRole, ValidModel};
 use ndarray::{Array1, Array2};
+use ndarray_linalg::SVD;
 use rand::{Rng, SeedableRng};
 use rand_chacha::ChaCha8Rng;
 use rayon::prelude::*;
@@ -171,9 +173,19 @@ pub fn fitted_values(
             w *= dt;
         }
     }
-    let mut fitted = x.dot(&fit.spectra.t());
+    // D̂ = P_X·D + Q_X·D·P_W: the projection onto the range of X (with the fit's rank rule),
+    // which is X·Ŝᵀ without the amplification of X⁺ when X is nearly rank-deficient, plus
+    // the baseline terms (the projection of the rest onto span{1, λ} or {1}).
+    let (u, sv, _) = x
+        .svd(true, false)
+        .map_err(|e| HardFitError::Solver(format!("SVD of the design failed: {e}")))?;
+    let u = u.ok_or_else(|| HardFitError::Solver("SVD of the design returned no vectors".into()))?;
+    let smax = sv.iter().fold(0.0f64, |a, v| a.max(*v));
+    let tol = smax * (ns.max(m) as f64) * f64::EPSILON;
+    let rank = sv.iter().filter(|&&v| v > tol).count();
+    let ur = u.slice(ndarray::s![.., ..rank]);
+    let mut fitted = ur.dot(&ur.t().dot(d));
     if params.baseline != Baseline::None {
-        // The baseline terms are the projection of D − X·Ŝᵀ onto span{1, λ} (or {1}).
         let q = baseline_basis(set.wavelengths_nm(), params.baseline);
         let rest = d - &fitted;
         fitted += &rest.dot(&q).dot(&q.t());
@@ -500,6 +512,42 @@ mod tests {
                 .iter()
                 .fold(0.0f64, |m, v| m.max(v.abs()));
             assert!(err < 1e-9, "{baseline:?}: max |D̂ − D| = {err}");
+        }
+    }
+
+    #[test]
+    fn the_residual_of_the_rebuilt_fitted_values_is_the_fit_rss_for_every_spectra_order() {
+        use super::super::SpectraTemperature;
+        let model = super::super::tests::two_complex_model(0.4, 12_000.0, -0.2, 35_000.0);
+        let mut p = plan(Noise::Absorbance { sd_au: 1e-3 }, true);
+        // enough temperatures and different metal totals for a well-conditioned ε(T) design
+        p.temperatures_c = (0..12).map(|k| 5.0 + 6.0 * f64::from(k)).collect();
+        p.series[1].totals_m.insert("M".into(), 0.01);
+        for s in &mut p.spectra {
+            for b in &mut s.bands {
+                b.shift_nm_per_k = 0.1;
+            }
+        }
+        let sim = simulate(&model, &p).unwrap();
+        for (spectra_temperature, baseline) in [
+            (SpectraTemperature::Linear { reference_k: 310.0 }, Baseline::None),
+            (
+                SpectraTemperature::Quadratic { reference_k: 300.0 },
+                Baseline::Offset,
+            ),
+            (SpectraTemperature::Constant, Baseline::OffsetAndSlope),
+        ] {
+            let params = HardFitParams {
+                spectra_temperature,
+                baseline,
+                start_grid: 1,
+                ..HardFitParams::default()
+            };
+            let f = fit(&sim.set, &model, &params).unwrap();
+            let d_hat = fitted_values(&sim.set, &params, &f).unwrap();
+            let rss: f64 = (sim.set.absorbance() - &d_hat).iter().map(|e| e * e).sum();
+            // the fit's own RSS (computed in the reduced space) must equal ‖D − D̂‖²
+            approx::assert_relative_eq!(rss, f.rss, max_relative = 1e-8);
         }
     }
 
