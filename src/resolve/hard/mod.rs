@@ -47,6 +47,7 @@
 //! Cramér–Rao bound with the spectra profiled out. Standard errors of ε are conditional on θ:
 //! σ²·diag((XᵀX)⁻¹) at each wavelength.
 
+pub mod bootstrap;
 mod problem;
 
 use super::lm::{self, LmParams, LmTermination};

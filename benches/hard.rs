@@ -1,0 +1,175 @@
+//! Global model fit timings: fit + standard errors of the 1:4 model M + 4L ⇌ ML4 (one series,
+//! free metal weakly absorbing), group `hard`, ids `hard/nwl<wavelengths>-nT<temperatures>-nsp2`
+//! (nsp = absorbing species). Data (noise 1e-3 AU, fixed seed) are simulated outside the timed
+//! closure.
+//!
+//! Side-by-side mode for `scripts/compare_peer.py`: with `ISOSBESTIC_PEER_DATA=DIR` the bench
+//! also loads every data set folder in DIR (spectra.csv + samples.csv with `Mt_M`, `Lt_M`),
+//! times the same fit on it and prints `PEER_COMPARE <folder> <median seconds> <ΔH° kJ/mol> <its standard error>` lines.
+//! `ISOSBESTIC_PEER_START_GRID=n` sets [`HardFitParams::start_grid`] for the timed fits (to
+//! measure what the start search costs).
+//!
+//! Memory: `ISOSBESTIC_MEMORY=build|fit` simulates a 3000-wavelength × 751-spectrum set and
+//! exits after building it, or after building it and fitting once: run both under
+//! `/usr/bin/time -v`; the difference of the peak resident sizes is what the fit adds.
+
+use criterion::{BenchmarkId, Criterion, criterion_group};
+use isosbestic::data::{DataFiles, SpectraSet, load};
+use isosbestic::resolve::hard::{self, HardFitParams};
+use isosbestic::simulate::{Band, Noise, PureSpectrum, SeriesPlan, SimulationPlan, simulate};
+use isosbestic::speciation::{EquilibriumModel, ValidModel};
+use std::hint::black_box;
+use std::path::Path;
+use std::time::Instant;
+
+/// M + 4L ⇌ ML4 with the given component names (the peer's files call them Mt and Lt).
+fn ml4_model(metal: &str, ligand: &str, log_beta: f64, dh: f64) -> ValidModel {
+    EquilibriumModel::from_toml_str(&format!(
+        r#"
+        components = [{{ name = "{metal}", absorbs = true }}, {{ name = "{ligand}", absorbs = false }}]
+        [[species]]
+        name = "ML4"
+        stoichiometry = {{ {metal} = 1, {ligand} = 4 }}
+        absorbs = true
+        law = {{ kind = "van_t_hoff", log_beta_ref = {{ value = {log_beta} }}, dh_ref = {{ value = {dh} }} }}
+        "#
+    ))
+    .expect("valid model")
+    .check()
+    .expect("valid model")
+}
+
+fn band(centre_nm: f64, width_nm: f64, height: f64) -> Band {
+    Band {
+        centre_nm,
+        width_nm,
+        height,
+        shift_nm_per_k: 0.0,
+    }
+}
+
+fn simulated(n_wl: usize, n_t: usize) -> SpectraSet {
+    let truth = ml4_model("M", "L", 4.0, 30_000.0);
+    let plan = SimulationPlan {
+        seed: 2026,
+        first_nm: 400.0,
+        last_nm: 700.0,
+        step_nm: 300.0 / (n_wl - 1) as f64,
+        temperatures_c: (0..n_t)
+            .map(|k| 5.0 + 75.0 * k as f64 / (n_t - 1) as f64)
+            .collect(),
+        path_cm: 1.0,
+        preparation_temperature_c: 25.0,
+        thermal_expansion: false,
+        noise: Noise::Absorbance { sd_au: 1e-3 },
+        offset_sd_au: 0.0,
+        slope_sd_au_per_100nm: 0.0,
+        series: vec![SeriesPlan {
+            label: "L0.1".into(),
+            totals_m: [("M".into(), 0.004), ("L".into(), 0.1)].into(),
+        }],
+        spectra: vec![
+            PureSpectrum {
+                species: "M".into(),
+                bands: vec![band(520.0, 50.0, 8.0)],
+            },
+            PureSpectrum {
+                species: "ML4".into(),
+                bands: vec![band(600.0, 45.0, 120.0), band(470.0, 30.0, 40.0)],
+            },
+        ],
+    };
+    let set = simulate(&truth, &plan).expect("simulation").set;
+    assert_eq!(set.n_wavelengths(), n_wl);
+    set
+}
+
+/// The fit both benches time: default settings (start grid included), from log β = 3, ΔH° = 0.
+/// Returns ΔH° and its standard error, kJ/mol.
+fn fit_once(set: &SpectraSet, model: &ValidModel) -> (f64, f64) {
+    let mut params = HardFitParams::default();
+    if let Some(g) = std::env::var("ISOSBESTIC_PEER_START_GRID")
+        .ok()
+        .and_then(|g| g.parse().ok())
+    {
+        params.start_grid = g;
+    }
+    let fit = hard::fit(set, model, &params).expect("fit");
+    let th = &fit.thermodynamics[0].standard;
+    (th.dh_j_mol / 1e3, th.standard_errors()[1] / 1e3)
+}
+
+fn bench_hard(c: &mut Criterion) {
+    let start = ml4_model("M", "L", 3.0, 0.0);
+    let mut group = c.benchmark_group("hard");
+    group
+        .sample_size(10)
+        .warm_up_time(std::time::Duration::from_millis(500))
+        .measurement_time(std::time::Duration::from_secs(2));
+    for &n_wl in &[100usize, 300, 1000, 3000] {
+        for &n_t in &[10usize, 30, 100] {
+            let set = simulated(n_wl, n_t);
+            group.bench_with_input(
+                BenchmarkId::from_parameter(format!("nwl{n_wl}-nT{n_t}-nsp2")),
+                &set,
+                |b, set| b.iter(|| black_box(fit_once(set, &start))),
+            );
+        }
+    }
+    group.finish();
+}
+
+fn load_peer(dir: &Path) -> SpectraSet {
+    load(&DataFiles::csv(dir.join("spectra.csv"), dir.join("samples.csv"))).expect("peer data set")
+}
+
+/// Times the fit on the peer's data folders (median of at least 5 runs and ~1 s).
+fn peer_compare(root: &Path) {
+    let start = ml4_model("Mt", "Lt", 3.0, 0.0);
+    let mut dirs: Vec<_> = std::fs::read_dir(root)
+        .expect("ISOSBESTIC_PEER_DATA is a folder")
+        .filter_map(|e| e.ok().map(|e| e.path()))
+        .filter(|p| p.join("spectra.csv").exists())
+        .collect();
+    dirs.sort();
+    for dir in dirs {
+        let set = load_peer(&dir);
+        let (dh, se) = fit_once(&set, &start); // warm-up
+        let mut times = Vec::new();
+        let begin = Instant::now();
+        while times.len() < 5 || (begin.elapsed().as_secs_f64() < 1.0 && times.len() < 200) {
+            let t = Instant::now();
+            black_box(fit_once(&set, &start));
+            times.push(t.elapsed().as_secs_f64());
+        }
+        times.sort_by(f64::total_cmp);
+        let name = dir
+            .file_name()
+            .map(|n| n.to_string_lossy().into_owned())
+            .unwrap_or_default();
+        println!(
+            "PEER_COMPARE {name} {:.6e} {dh:.4} {se:.4}",
+            times[times.len() / 2]
+        );
+    }
+}
+
+criterion_group!(benches, bench_hard);
+
+fn main() {
+    if let Ok(mode) = std::env::var("ISOSBESTIC_MEMORY") {
+        let set = simulated(3000, 751); // 0.1 °C apart: sample ids stay distinct
+        if mode == "fit" {
+            black_box(fit_once(&set, &ml4_model("M", "L", 3.0, 0.0)));
+        }
+        black_box(set);
+        return;
+    }
+    if let Ok(dir) = std::env::var("ISOSBESTIC_PEER_DATA") {
+        let dir = Path::new(&dir);
+        peer_compare(dir);
+        return;
+    }
+    benches();
+    Criterion::default().configure_from_args().final_summary();
+}
