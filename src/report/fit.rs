@@ -476,7 +476,13 @@ pub const FIT_PAGE_OUTPUTS: [&str; 6] = [
 ///
 /// # Errors
 /// [`Error::WouldOverwrite`], [`Error::Plot`] or [`Error::Output`].
-pub fn write_fit_page(dir: &Path, report: &FitReport, set: &SpectraSet, timestamp: &str, force: bool) -> Result<Vec<PathBuf>> {
+pub fn write_fit_page(
+    dir: &Path,
+    report: &FitReport,
+    set: &SpectraSet,
+    timestamp: &str,
+    force: bool,
+) -> Result<Vec<PathBuf>> {
     use crate::report::html::{Generation, Section, hard_fit_rows, render_report};
     use crate::report::plots::{self, Palette};
     let targets: Vec<PathBuf> = FIT_PAGE_OUTPUTS.iter().map(|n| dir.join(n)).collect();
@@ -531,11 +537,16 @@ pub fn write_fit_page(dir: &Path, report: &FitReport, set: &SpectraSet, timestam
             .with_figure("Concentration profiles against temperature, per series", profiles),
         Section::new("Residuals")
             .with_figure("Residual map (wavelength × sample)", residual_map)
-            .with_figure("Singular values of the residual matrix: structure stands out above the noise floor", sv),
+            .with_figure(
+                "Singular values of the residual matrix: structure stands out above the noise floor",
+                sv,
+            ),
     ];
     let page = render_report("isosbestic global fit", &generation, &sections);
-    crate::report::atomic::write_atomic(&targets[0], page.as_bytes())
-        .map_err(|source| Error::Output { path: targets[0].clone(), source })?;
+    crate::report::atomic::write_atomic(&targets[0], page.as_bytes()).map_err(|source| Error::Output {
+        path: targets[0].clone(),
+        source,
+    })?;
     Ok(targets)
 }
 

@@ -1014,7 +1014,10 @@ pub fn concentration_profiles_of(
         .into_iter()
         .map(|(label, rows)| {
             let t = rows.iter().map(|&i| set.samples()[i].temperature_c()).collect();
-            let c = fit.concentrations.select(ndarray::Axis(0), &rows).select(ndarray::Axis(1), &cols);
+            let c = fit
+                .concentrations
+                .select(ndarray::Axis(0), &rows)
+                .select(ndarray::Axis(1), &cols);
             (label, t, c)
         })
         .collect();
@@ -1027,7 +1030,12 @@ pub fn concentration_profiles_of(
         })
         .collect();
     let names: Vec<&str> = fit.absorbing_species.iter().map(String::as_str).collect();
-    concentration_profiles("Concentration profiles of the absorbing species", &series, &names, palette)
+    concentration_profiles(
+        "Concentration profiles of the absorbing species",
+        &series,
+        &names,
+        palette,
+    )
 }
 
 // ---------------------------------------------------------------------------------------------

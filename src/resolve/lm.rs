@@ -7,7 +7,7 @@
 //! (JᵀJ + λ·diag(JᵀJ)) δ = −Jᵀr
 //! ```
 //!
-//! as the equivalent, better-conditioned least-squares problem ‖[J; √λ·D] δ + [r; 0]‖ → min with
+//! by Cholesky factorisation of the small p × p matrix, JᵀJ formed once per iteration, with
 //! D = diag(JᵀJ)^½ (Marquardt's scaling; Moré, "The Levenberg–Marquardt algorithm:
 //! implementation and theory", Lecture Notes in Mathematics 630 (1978) 105). Steps are accepted
 //! when the gain ratio ρ = actual / predicted reduction is positive; λ is updated by Nielsen's
@@ -23,8 +23,8 @@ use argmin::core::{
     Error as ArgminError, Executor, Jacobian, KV, Operator, Problem, Solver, State, TerminationReason,
     TerminationStatus,
 };
-use ndarray::{Array1, Array2, Axis, concatenate};
-use ndarray_linalg::LeastSquaresSvd;
+use ndarray::{Array1, Array2, Axis};
+use ndarray_linalg::SolveH;
 use serde::{Deserialize, Serialize};
 
 /// The state type the solver runs on: parameters θ, Jacobian J and residuals r as ndarray
@@ -196,15 +196,16 @@ where
         let dmax = diag.iter().fold(0.0f64, |m, v| m.max(*v));
         diag.mapv_inplace(|d| d.max(1e-12 * dmax.max(f64::MIN_POSITIVE)));
         let n = x.len();
+        let jtj = j.t().dot(&j);
         for attempt in 0..60 {
-            let sl = self.damping.sqrt();
-            let damp = Array2::from_diag(&(&diag * sl));
-            let a = concatenate(Axis(0), &[j.view(), damp.view()])
-                .map_err(|e| -> ArgminError { argmin::argmin_error!(PotentialBug, e.to_string()) })?;
-            let mut b = Array1::zeros(r.len() + n);
-            b.slice_mut(ndarray::s![..r.len()]).assign(&(-&r));
-            let step = match a.least_squares(&b) {
-                Ok(sol) if sol.solution.iter().all(|v| v.is_finite()) => sol.solution,
+            // (JᵀJ + λ D²) δ = −Jᵀr, solved by Cholesky on the p × p system; the scaled,
+            // damped matrix is positive definite for λ > 0.
+            let mut a = jtj.clone();
+            for k in 0..n {
+                a[[k, k]] += self.damping * diag[k] * diag[k];
+            }
+            let step = match a.solveh(&(-&g)) {
+                Ok(sol) if sol.iter().all(|v| v.is_finite()) => sol,
                 _ => {
                     self.damping *= self.nu;
                     self.nu *= 2.0;

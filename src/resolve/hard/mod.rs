@@ -55,8 +55,8 @@ use crate::data::SpectraSet;
 use crate::speciation::{
     Derivatives, FormationLaw, SpeciationBatch, SpeciationError, StandardQuantities, ValidModel,
 };
-use ndarray::{Array1, Array2, Axis, s};
-use ndarray_linalg::SVD;
+use ndarray::{Array1, Array2, s};
+use ndarray_linalg::{Eigh, SVD, UPLO};
 use problem::{Projection, VarproProblem, sum_sq};
 use serde::{Deserialize, Serialize};
 use std::sync::Mutex;
@@ -461,32 +461,48 @@ fn baseline_shapes(wavelengths_nm: &Array1<f64>, baseline: Baseline) -> Option<A
     }
 }
 
+/// Orthonormal basis Q_W of the baseline shapes (thin SVD of W, at most 2 columns).
+fn baseline_basis(w: &Array2<f64>) -> Option<Array2<f64>> {
+    let (u, _, _) = w.svd(true, false).ok()?;
+    u.map(|u| u.slice(s![.., ..w.ncols()]).to_owned())
+}
+
 /// D(I − P_W): removes the baseline shapes from every row.
 fn remove_baseline_shapes(d: &Array2<f64>, w: &Array2<f64>) -> Array2<f64> {
-    // Orthonormal basis of W by thin SVD (2 columns at most).
-    let (u, _, _) = w.svd(true, false).unwrap_or((None, Array1::zeros(0), None));
-    match u {
-        Some(u) => {
-            let q = u.slice(s![.., ..w.ncols()]).to_owned();
-            d - &d.dot(&q).dot(&q.t())
-        }
+    match baseline_basis(w) {
+        Some(q) => d - &d.dot(&q).dot(&q.t()),
         None => d.clone(),
     }
 }
 
-/// The exact reduction G = D̃·V onto the row space of D̃.
-fn reduce(d_tilde: &Array2<f64>) -> Result<Array2<f64>, HardFitError> {
-    let (u, s, _) = d_tilde
-        .svd(true, false)
-        .map_err(|e| HardFitError::Solver(format!("SVD of the data failed: {e}")))?;
-    let u = u.ok_or_else(|| HardFitError::Solver("SVD of the data returned no vectors".into()))?;
-    // D̃V = UΣ: keep singular values above rounding level (exact subspace).
-    let smax = s.iter().fold(0.0f64, |m, v| m.max(*v));
-    let tol = smax * (d_tilde.nrows().max(d_tilde.ncols()) as f64) * f64::EPSILON;
-    let r = s.iter().filter(|&&v| v > tol).count().max(1);
-    let mut g = u.slice(s![.., ..r]).to_owned();
-    for (k, mut col) in g.axis_iter_mut(Axis(1)).enumerate() {
-        col *= s[k];
+/// The reduction G (samples × r) with G·Gᵀ = D̃·D̃ᵀ, D̃ = D(I − P_W), from the Gram matrix:
+/// D̃D̃ᵀ = DDᵀ − (DQ_W)(DQ_W)ᵀ = U·Λ·Uᵀ, G = U·Λ^½. One pass over D and no copy of it.
+///
+/// Every quantity of the fit (‖Q_X D̃‖, JᵀJ, Jᵀr) depends on D̃ only through D̃D̃ᵀ, so the
+/// reduction is exact in exact arithmetic; in floating point, eigenvalues carry an absolute
+/// error of about ε·s₁², i.e. the smallest singular values a relative error of about
+/// ε·(s₁/sₖ)² — around 1e-8 for noise-level singular values, negligible for the statistics.
+fn reduce(d: &Array2<f64>, w: Option<&Array2<f64>>) -> Result<Array2<f64>, HardFitError> {
+    let mut gram = d.dot(&d.t());
+    if let Some(q) = w.and_then(baseline_basis) {
+        let dq = d.dot(&q);
+        gram -= &dq.dot(&dq.t());
+    }
+    let (lambda, u) = gram
+        .eigh(UPLO::Lower)
+        .map_err(|e| HardFitError::Solver(format!("eigen-decomposition of DDᵀ failed: {e}")))?;
+    let lmax = lambda.iter().fold(0.0f64, |m, v| m.max(*v));
+    let tol = lmax * (d.nrows() as f64) * f64::EPSILON;
+    let keep: Vec<usize> = (0..lambda.len()).rev().filter(|&k| lambda[k] > tol).collect();
+    let keep = if keep.is_empty() {
+        vec![lambda.len() - 1]
+    } else {
+        keep
+    };
+    let mut g = Array2::zeros((d.nrows(), keep.len()));
+    for (c, &k) in keep.iter().enumerate() {
+        let sk = lambda[k].max(0.0).sqrt();
+        g.column_mut(c).assign(&(&u.column(k) * sk));
     }
     Ok(g)
 }
@@ -537,12 +553,7 @@ fn build_problem<'a>(
     let (ns, nw) = d.dim();
     let w = baseline_shapes(set.wavelengths_nm(), params.baseline);
     let nb = w.as_ref().map_or(0, |w| w.ncols());
-    let d_tilde = match &w {
-        Some(w) => remove_baseline_shapes(d, w),
-        None => d.clone(),
-    };
-    let reduced = reduce(&d_tilde)?;
-    drop(d_tilde);
+    let reduced = reduce(d, w.as_ref())?;
     let m = absorbing.len() * (params.spectra_temperature.order() + 1);
     let n_linear = m * nw + nb * ns - m * nb;
     let unknowns = free.len() + n_linear;
@@ -590,6 +601,7 @@ pub fn fit(set: &SpectraSet, model: &ValidModel, params: &HardFitParams) -> Resu
         upper: upper.clone(),
         ..params.solver.clone()
     };
+    // The solver runs from the best start; the next two are tried only if it does not converge.
     let mut best: Option<lm::LmOutcome> = None;
     let mut last_error = None;
     for start in starts.iter().take(3) {
@@ -600,6 +612,9 @@ pub fn fit(set: &SpectraSet, model: &ValidModel, params: &HardFitParams) -> Resu
                 }
             }
             Err(e) => last_error = Some(e.to_string()),
+        }
+        if best.as_ref().is_some_and(|b| b.termination.converged()) {
+            break;
         }
     }
     let out =
@@ -810,6 +825,7 @@ fn start_points(
         ));
     }
     scored.sort_by(|a, b| a.0.total_cmp(&b.0));
+    scored.dedup_by(|a, b| a.1 == b.1);
     Ok(scored.into_iter().map(|(_, x)| x).collect())
 }
 

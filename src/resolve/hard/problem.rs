@@ -5,7 +5,7 @@ use super::{FreeParameter, SpectraTemperature};
 use crate::speciation::{Derivatives, FormationLaw, SpeciationBatch, Start, ValidModel, speciate_all_into};
 use argmin::core::{Error as ArgminError, Jacobian, Operator};
 use ndarray::{Array1, Array2, ArrayView2};
-use ndarray_linalg::SVD;
+use ndarray_linalg::{JobSvd, SVDDC};
 use std::sync::Mutex;
 
 /// Everything fixed during a fit, and a warm-start speciation cache.
@@ -173,7 +173,7 @@ impl VarproProblem<'_> {
     /// Thin SVD of X with a numerical rank and X⁺.
     pub fn project(&self, x: Array2<f64>) -> Result<Projection, ArgminError> {
         let (u, s, vt) = x
-            .svd(true, true)
+            .svddc(JobSvd::Some)
             .map_err(|e| -> ArgminError { argmin::argmin_error!(InvalidParameter, e.to_string()) })?;
         let (Some(u), Some(vt)) = (u, vt) else {
             return Err(argmin::argmin_error!(PotentialBug, "SVD returned no vectors"));
@@ -207,9 +207,14 @@ impl VarproProblem<'_> {
     }
 }
 
-/// Row-major flattening (residual order: sample by sample).
+/// Row-major flattening (residual order: sample by sample), without a copy when the matrix is
+/// in standard layout (as every product and difference here is).
 fn flatten(m: Array2<f64>) -> Array1<f64> {
-    m.iter().copied().collect()
+    if m.is_standard_layout() {
+        Array1::from(m.into_raw_vec_and_offset().0)
+    } else {
+        m.iter().copied().collect()
+    }
 }
 
 impl Operator for VarproProblem<'_> {
