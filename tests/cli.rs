@@ -48,6 +48,21 @@ fn inspect_summarises_the_demo_csv_and_jcamp_data() {
     let doc: serde_json::Value = serde_json::from_str(&out).unwrap();
     assert_eq!(doc["kind"], "inspect");
     assert_eq!(doc["data"]["samples"], 18);
+    // the same as files: JSON and CSV tables
+    let dir = tempfile::tempdir().unwrap();
+    let (code, _, err) = run(bin()
+        .args(["inspect", "--spectra"])
+        .arg(demo("spectra.csv"))
+        .arg("--samples")
+        .arg(demo("samples.csv"))
+        .arg("--out")
+        .arg(dir.path()));
+    assert_eq!(code, 0, "{err}");
+    let sv = std::fs::read_to_string(dir.path().join("singular_values.csv")).unwrap();
+    assert_eq!(sv.lines().count(), 1 + 54); // header + one row per singular value (54 samples)
+    let efa = std::fs::read_to_string(dir.path().join("evolving_factors.csv")).unwrap();
+    assert_eq!(efa.lines().count(), 1 + 54);
+    assert!(dir.path().join("inspect.json").is_file() && dir.path().join("masked_points.csv").is_file());
 }
 
 #[test]

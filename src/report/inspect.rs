@@ -160,3 +160,90 @@ impl fmt::Display for InspectReport {
         write!(f, "{}", self.factor)
     }
 }
+
+/// Names of the files [`write_inspect_outputs`] writes.
+pub const INSPECT_OUTPUTS: [&str; 4] = [
+    "inspect.json",
+    "singular_values.csv",
+    "evolving_factors.csv",
+    "masked_points.csv",
+];
+
+/// Writes an inspection as JSON (with format version) and CSV tables into `dir`, atomically:
+/// `singular_values.csv` (k, singular value, cumulative explained variance, IND(k), F-test),
+/// `evolving_factors.csv` (window in temperature order, sample row, forward and backward
+/// log₁₀ singular values) and `masked_points.csv` (sample, first and last masked wavelength,
+/// count).
+///
+/// # Errors
+/// [`crate::Error::WouldOverwrite`] for existing files unless `force`; [`crate::Error::Output`].
+pub fn write_inspect_outputs(
+    dir: &std::path::Path,
+    report: &InspectReport,
+    force: bool,
+) -> Result<Vec<std::path::PathBuf>> {
+    use crate::report::tables::{Table, format_float, write_json};
+    std::fs::create_dir_all(dir).map_err(|source| crate::Error::Output {
+        path: dir.to_path_buf(),
+        source,
+    })?;
+    let targets: Vec<std::path::PathBuf> = INSPECT_OUTPUTS.iter().map(|n| dir.join(n)).collect();
+    crate::report::fit::guard_outputs(&targets, &[], force)?;
+    write_json(&targets[0], "inspect", report)?;
+    let f = &report.factor;
+    let mut sv = Table::new([
+        "k",
+        "singular_value",
+        "cumulative_variance",
+        "indicator",
+        "f",
+        "p_value",
+    ]);
+    for (k, s) in f.singular_values.iter().enumerate() {
+        let ind = f.rank.ind.get(k).map_or(String::new(), |v| format_float(*v));
+        let ft = f.rank.f_test.iter().find(|r| r.k == k + 1);
+        sv.push_row([
+            (k + 1).to_string(),
+            format_float(*s),
+            f.explained_variance
+                .get(k)
+                .map_or(String::new(), |v| format_float(*v)),
+            ind,
+            ft.map_or(String::new(), |r| format_float(r.f)),
+            ft.map_or(String::new(), |r| format_float(r.p_value)),
+        ]);
+    }
+    sv.write_csv(&targets[1])?;
+    let mut efa = Table::new(["window", "sample_row"]);
+    if let Some(e) = &f.efa {
+        let n = e.forward.ncols();
+        efa = Table::new(
+            ["window".to_string(), "sample_row".into()]
+                .into_iter()
+                .chain((1..=n).map(|k| format!("forward_log10_s{k}")))
+                .chain((1..=n).map(|k| format!("backward_log10_s{k}"))),
+        );
+        for (w, &row) in e.order.iter().enumerate() {
+            efa.push_row(
+                [(w + 1).to_string(), row.to_string()]
+                    .into_iter()
+                    .chain(e.forward.row(w).iter().map(|v| format_float(*v)))
+                    .chain(e.backward.row(w).iter().map(|v| format_float(*v))),
+            );
+        }
+    }
+    efa.write_csv(&targets[2])?;
+    let mut masked = Table::new(["sample", "first_nm", "last_nm", "count"]);
+    if let Some(sat) = &report.preprocessing.saturation {
+        for run in &sat.masked {
+            masked.push_row([
+                run.sample.clone(),
+                format_float(run.first_nm),
+                format_float(run.last_nm),
+                run.count.to_string(),
+            ]);
+        }
+    }
+    masked.write_csv(&targets[3])?;
+    Ok(targets)
+}

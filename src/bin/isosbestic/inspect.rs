@@ -31,6 +31,12 @@ pub struct InspectArgs {
     /// Print the report as JSON instead of a table.
     #[arg(long)]
     json: bool,
+    /// Also write the report (inspect.json) and its CSV tables into this folder.
+    #[arg(long, value_name = "DIR")]
+    out: Option<std::path::PathBuf>,
+    /// Overwrite outputs of an earlier run in --out.
+    #[arg(long)]
+    force: bool,
 }
 
 pub fn run(args: &InspectArgs) -> isosbestic::Result<ExitCode> {
@@ -52,6 +58,9 @@ pub fn run(args: &InspectArgs) -> isosbestic::Result<ExitCode> {
         params.factor.evolving = false;
     }
     let report = inspect(&set, &params)?;
+    if let Some(dir) = &args.out {
+        isosbestic::report::inspect::write_inspect_outputs(dir, &report, args.force)?;
+    }
     if args.json {
         let doc = isosbestic::report::tables::to_json_document("inspect", &report);
         println!("{}", serde_json::to_string_pretty(&doc).unwrap_or_default());
