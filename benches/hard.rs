@@ -22,11 +22,13 @@ use std::hint::black_box;
 use std::path::Path;
 use std::time::Instant;
 
-/// M + 4L ⇌ ML4 with the given component names (the peer's files call them Mt and Lt).
+/// M + 4L ⇌ ML4 with the given component names (the peer's files call them Mt and Lt). The
+/// free metal is declared a weak absorber (ε ceiling 20 L mol⁻¹ cm⁻¹), the same prior the peer
+/// uses to break the tie between the solution and its mirror.
 fn ml4_model(metal: &str, ligand: &str, log_beta: f64, dh: f64) -> ValidModel {
     EquilibriumModel::from_toml_str(&format!(
         r#"
-        components = [{{ name = "{metal}", absorbs = true }}, {{ name = "{ligand}", absorbs = false }}]
+        components = [{{ name = "{metal}", absorbs = true, max_absorptivity = 20.0 }}, {{ name = "{ligand}", absorbs = false }}]
         [[species]]
         name = "ML4"
         stoichiometry = {{ {metal} = 1, {ligand} = 4 }}

@@ -23,3 +23,42 @@ pub fn gaussian_band(wavelengths_nm: &[f64], centre_nm: f64, width_nm: f64, heig
         .map(|l| height * (-0.5 * ((l - centre_nm) / width_nm).powi(2)).exp())
         .collect()
 }
+
+/// An invented metal–ligand model for tests and benches: components `metal` (absorbing, with an
+/// optional ε ceiling) and `ligand` (transparent), and one complex per `(n, log β_ref, ΔH° in
+/// J/mol)` entry with a van 't Hoff law at 298.15 K, named `{metal}{ligand}` for n = 1 and
+/// `{metal}{ligand}{n}` otherwise.
+///
+/// # Panics
+/// Only if the generated model is invalid (e.g. repeated n), which is a bug in the caller.
+///
+/// # Examples
+/// ```
+/// let m = isosbestic::testing::metal_ligand_model("M", "X", &[(1, 0.4, 12e3), (2, -0.2, 35e3)], None);
+/// assert_eq!(m.species_index("MX2"), Some(3));
+/// ```
+pub fn metal_ligand_model(
+    metal: &str,
+    ligand: &str,
+    complexes: &[(u32, f64, f64)],
+    metal_ceiling: Option<f64>,
+) -> crate::speciation::ValidModel {
+    let ceiling = metal_ceiling.map_or(String::new(), |c| format!(", max_absorptivity = {c}"));
+    let mut text = format!(
+        "components = [{{ name = \"{metal}\", absorbs = true{ceiling} }}, {{ name = \"{ligand}\", absorbs = false }}]\n"
+    );
+    for &(n, log_beta, dh) in complexes {
+        let name = if n == 1 {
+            format!("{metal}{ligand}")
+        } else {
+            format!("{metal}{ligand}{n}")
+        };
+        text.push_str(&format!(
+            "[[species]]\nname = \"{name}\"\nstoichiometry = {{ {metal} = 1, {ligand} = {n} }}\nabsorbs = true\n\
+             law = {{ kind = \"van_t_hoff\", log_beta_ref = {{ value = {log_beta} }}, dh_ref = {{ value = {dh} }} }}\n"
+        ));
+    }
+    crate::speciation::EquilibriumModel::from_toml_str(&text)
+        .and_then(|m| m.check())
+        .expect("a valid generated model")
+}

@@ -7,25 +7,13 @@ use isosbestic::resolve::classic::{
 };
 use isosbestic::resolve::hard::{self, ConcentrationBasis, HardFitParams};
 use isosbestic::simulate::{Band, Noise, PureSpectrum, SeriesPlan, SimulationPlan, simulate};
-use isosbestic::speciation::{EquilibriumModel, GAS_CONSTANT, ValidModel};
+use isosbestic::speciation::{GAS_CONSTANT, ValidModel};
 use isosbestic::thermo::{SolventDensity, VanThoffParams};
 use rayon::prelude::*;
 
 /// M + 4L ⇌ ML4 (an invented system), van 't Hoff law.
 fn ml4(log_beta: f64, dh: f64) -> ValidModel {
-    EquilibriumModel::from_toml_str(&format!(
-        r#"
-        components = [{{ name = "M", absorbs = true }}, {{ name = "L", absorbs = false }}]
-        [[species]]
-        name = "ML4"
-        stoichiometry = {{ M = 1, L = 4 }}
-        absorbs = true
-        law = {{ kind = "van_t_hoff", log_beta_ref = {{ value = {log_beta} }}, dh_ref = {{ value = {dh} }} }}
-        "#
-    ))
-    .unwrap()
-    .check()
-    .unwrap()
+    isosbestic::testing::metal_ligand_model("M", "L", &[(4, log_beta, dh)], None)
 }
 
 const LOG_BETA: f64 = 4.0;
@@ -120,24 +108,7 @@ fn nominal_95_percent_intervals_for_dh_and_ds_cover_the_truth_92_to_98_percent_o
 
 /// M + X ⇌ MX, M + 2X ⇌ MX2 (stepwise, invented), van 't Hoff laws.
 fn stepwise(lb1: f64, dh1: f64, lb2: f64, dh2: f64) -> ValidModel {
-    EquilibriumModel::from_toml_str(&format!(
-        r#"
-        components = [{{ name = "M", absorbs = true }}, {{ name = "X", absorbs = false }}]
-        [[species]]
-        name = "MX"
-        stoichiometry = {{ M = 1, X = 1 }}
-        absorbs = true
-        law = {{ kind = "van_t_hoff", log_beta_ref = {{ value = {lb1} }}, dh_ref = {{ value = {dh1} }} }}
-        [[species]]
-        name = "MX2"
-        stoichiometry = {{ M = 1, X = 2 }}
-        absorbs = true
-        law = {{ kind = "van_t_hoff", log_beta_ref = {{ value = {lb2} }}, dh_ref = {{ value = {dh2} }} }}
-        "#
-    ))
-    .unwrap()
-    .check()
-    .unwrap()
+    isosbestic::testing::metal_ligand_model("M", "X", &[(1, lb1, dh1), (2, lb2, dh2)], None)
 }
 
 #[test]
@@ -271,19 +242,7 @@ fn bootstrap_spreads_match_the_spread_over_independent_noise_realisations() {
 
 /// M + L ⇌ ML (an invented system), van 't Hoff law.
 fn ml(log_beta: f64, dh: f64) -> ValidModel {
-    EquilibriumModel::from_toml_str(&format!(
-        r#"
-        components = [{{ name = "M", absorbs = true }}, {{ name = "L", absorbs = false }}]
-        [[species]]
-        name = "ML"
-        stoichiometry = {{ M = 1, L = 1 }}
-        absorbs = true
-        law = {{ kind = "van_t_hoff", log_beta_ref = {{ value = {log_beta} }}, dh_ref = {{ value = {dh} }} }}
-        "#
-    ))
-    .unwrap()
-    .check()
-    .unwrap()
+    isosbestic::testing::metal_ligand_model("M", "L", &[(1, log_beta, dh)], None)
 }
 
 const ML_DH: f64 = -25_000.0;

@@ -3,29 +3,11 @@
 
 use isosbestic::resolve::hard::{self, Baseline, ConcentrationBasis, HardFitParams, SpectraTemperature};
 use isosbestic::simulate::{Band, Noise, PureSpectrum, SeriesPlan, SimulationPlan, simulate};
-use isosbestic::speciation::EquilibriumModel;
 use isosbestic::thermo::SolventDensity;
 
 /// M + X ⇌ MX and M + 2X ⇌ MX2, van 't Hoff laws; `truth` chooses the parameter values.
 fn model(lb1: f64, dh1: f64, lb2: f64, dh2: f64) -> isosbestic::speciation::ValidModel {
-    EquilibriumModel::from_toml_str(&format!(
-        r#"
-        components = [{{ name = "M", absorbs = true }}, {{ name = "X", absorbs = false }}]
-        [[species]]
-        name = "MX"
-        stoichiometry = {{ M = 1, X = 1 }}
-        absorbs = true
-        law = {{ kind = "van_t_hoff", log_beta_ref = {{ value = {lb1} }}, dh_ref = {{ value = {dh1} }} }}
-        [[species]]
-        name = "MX2"
-        stoichiometry = {{ M = 1, X = 2 }}
-        absorbs = true
-        law = {{ kind = "van_t_hoff", log_beta_ref = {{ value = {lb2} }}, dh_ref = {{ value = {dh2} }} }}
-        "#
-    ))
-    .unwrap()
-    .check()
-    .unwrap()
+    isosbestic::testing::metal_ligand_model("M", "X", &[(1, lb1, dh1), (2, lb2, dh2)], None)
 }
 
 fn plan(noise: Noise, seed: u64) -> SimulationPlan {
@@ -227,20 +209,7 @@ fn band_shifts_need_temperature_dependent_spectra() {
 
 /// M + X ⇌ MX with an optional ε ceiling on the free metal.
 fn one_to_one(lb: f64, dh: f64, ceiling: Option<f64>) -> isosbestic::speciation::ValidModel {
-    let c = ceiling.map_or(String::new(), |c| format!(", max_absorptivity = {c}"));
-    EquilibriumModel::from_toml_str(&format!(
-        r#"
-        components = [{{ name = "M", absorbs = true{c} }}, {{ name = "X", absorbs = false }}]
-        [[species]]
-        name = "MX"
-        stoichiometry = {{ M = 1, X = 1 }}
-        absorbs = true
-        law = {{ kind = "van_t_hoff", log_beta_ref = {{ value = {lb} }}, dh_ref = {{ value = {dh} }} }}
-        "#
-    ))
-    .unwrap()
-    .check()
-    .unwrap()
+    isosbestic::testing::metal_ligand_model("M", "X", &[(1, lb, dh)], ceiling)
 }
 
 #[test]

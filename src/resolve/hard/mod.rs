@@ -1009,28 +1009,10 @@ fn summarise(
 mod tests {
     use super::*;
     use crate::simulate::{Band, Noise, PureSpectrum, SeriesPlan, SimulationPlan, simulate};
-    use crate::speciation::EquilibriumModel;
     use argmin::core::{Jacobian, Operator};
 
     pub(crate) fn two_complex_model(lb1: f64, dh1: f64, lb2: f64, dh2: f64) -> ValidModel {
-        EquilibriumModel::from_toml_str(&format!(
-            r#"
-            components = [{{ name = "M", absorbs = true }}, {{ name = "X", absorbs = false }}]
-            [[species]]
-            name = "MX"
-            stoichiometry = {{ M = 1, X = 1 }}
-            absorbs = true
-            law = {{ kind = "van_t_hoff", log_beta_ref = {{ value = {lb1} }}, dh_ref = {{ value = {dh1} }} }}
-            [[species]]
-            name = "MX2"
-            stoichiometry = {{ M = 1, X = 2 }}
-            absorbs = true
-            law = {{ kind = "van_t_hoff", log_beta_ref = {{ value = {lb2} }}, dh_ref = {{ value = {dh2} }} }}
-            "#
-        ))
-        .unwrap()
-        .check()
-        .unwrap()
+        crate::testing::metal_ligand_model("M", "X", &[(1, lb1, dh1), (2, lb2, dh2)], None)
     }
 
     fn small_plan() -> SimulationPlan {
