@@ -262,3 +262,27 @@ fn a_mirror_solution_is_found_and_the_weak_absorber_ceiling_decides() {
         "the mirror solution should be reported"
     );
 }
+
+#[test]
+fn log_beta_at_the_reference_temperature_carries_the_parameter_error() {
+    // At T_ref, log β = log_beta_ref exactly, so its standard error is that parameter's.
+    let truth = model(0.4, 12_000.0, -0.2, 35_000.0);
+    let sim = simulate(&truth, &plan(Noise::Absorbance { sd_au: 5e-4 }, 2)).unwrap();
+    let start = model(1.0, 0.0, 1.0, 0.0);
+    let fit = hard::fit(&sim.set, &start, &fit_params()).unwrap();
+    let at = fit.log_beta_at(&start, "MX", &[298.15, 350.0], 0.95).unwrap();
+    let p = fit.parameter("MX", "log_beta_ref").unwrap();
+    approx::assert_relative_eq!(at[0].log_beta, p.value, max_relative = 1e-12);
+    approx::assert_relative_eq!(at[0].standard_error, p.standard_error, max_relative = 1e-9);
+    // away from T_ref the error includes the ΔH° uncertainty; the 95 % band holds the truth
+    assert!(at[1].standard_error.is_finite() && at[1].standard_error > 0.0);
+    let truth_350 = 0.4
+        - 12_000.0 / (isosbestic::speciation::GAS_CONSTANT * std::f64::consts::LN_10)
+            * (1.0 / 350.0 - 1.0 / 298.15);
+    assert!(
+        at[1].lower < truth_350 && truth_350 < at[1].upper,
+        "{:?} vs {truth_350}",
+        at[1]
+    );
+    assert!(fit.log_beta_at(&start, "nope", &[300.0], 0.95).is_none());
+}

@@ -282,7 +282,75 @@ pub struct HardFit {
     pub alternatives: Vec<AlternativeSolution>,
 }
 
+/// log₁₀ β of one species at one temperature with its standard error and confidence band.
+#[derive(Debug, Clone, Copy, PartialEq, Serialize, Deserialize)]
+pub struct LogBetaAt {
+    /// Temperature, K.
+    pub temperature_k: f64,
+    /// log₁₀ β.
+    pub log_beta: f64,
+    /// Standard error, from the covariance of the law's free parameters.
+    pub standard_error: f64,
+    /// Lower end of the band.
+    pub lower: f64,
+    /// Upper end of the band.
+    pub upper: f64,
+}
+
 impl HardFit {
+    /// log₁₀ β of `species` at each temperature with a two-sided `level` confidence band
+    /// (Student t with the fit's degrees of freedom): σ² = gᵀ Cov g with g = ∂ log₁₀ β/∂θ.
+    ///
+    /// `None` if the species is not in the model. The model must be the one that was fitted.
+    pub fn log_beta_at(
+        &self,
+        model: &ValidModel,
+        species: &str,
+        temperatures_k: &[f64],
+        level: f64,
+    ) -> Option<Vec<LogBetaAt>> {
+        let k = model.species_index(species)?;
+        let law = &model.species()[k].law;
+        let mut values: Vec<f64> = law.parameters().iter().map(|p| p.value).collect();
+        let idx: Vec<(usize, usize)> = self
+            .parameters
+            .iter()
+            .enumerate()
+            .filter(|(_, p)| p.parameter.species == k)
+            .map(|(q, p)| (q, p.parameter.parameter))
+            .collect();
+        for &(q, j) in &idx {
+            values[j] = self.parameters[q].value;
+        }
+        let t = crate::stats::student_t_quantile(0.5 + level / 2.0, self.degrees_of_freedom.max(1) as f64);
+        let mut g = vec![0.0; law.n_parameters()];
+        Some(
+            temperatures_k
+                .iter()
+                .map(|&temperature_k| {
+                    let log_beta = law.log10_beta_gradient_with(&values, temperature_k, &mut g);
+                    let var: f64 = idx
+                        .iter()
+                        .flat_map(|&(a, ja)| idx.iter().map(move |&(b, jb)| (a, ja, b, jb)))
+                        .map(|(a, ja, b, jb)| g[ja] * self.covariance[[a, b]] * g[jb])
+                        .sum();
+                    let standard_error = if var.is_nan() {
+                        f64::NAN
+                    } else {
+                        var.max(0.0).sqrt()
+                    };
+                    LogBetaAt {
+                        temperature_k,
+                        log_beta,
+                        standard_error,
+                        lower: log_beta - t * standard_error,
+                        upper: log_beta + t * standard_error,
+                    }
+                })
+                .collect(),
+        )
+    }
+
     /// Value and standard error of a parameter by species and parameter name.
     pub fn parameter(&self, species: &str, name: &str) -> Option<&FittedParameter> {
         self.parameters
