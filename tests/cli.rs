@@ -198,9 +198,38 @@ fn simulate_then_fit_recovers_the_planned_parameters() {
 
 #[test]
 fn every_subcommand_has_help_with_examples() {
-    for sub in ["inspect", "fit", "vanthoff", "simulate"] {
+    for sub in ["inspect", "fit", "resolve", "vanthoff", "simulate"] {
         let (code, out, _) = run(bin().args([sub, "--help"]));
         assert_eq!(code, 0);
         assert!(out.contains("Example"), "{sub}: {out}");
     }
+}
+
+#[test]
+fn resolve_writes_soft_profiles_and_spectra() {
+    let dir = tempfile::tempdir().unwrap();
+    let (code, out, err) = run(bin()
+        .args(["resolve", "--species", "3", "--spectra"])
+        .arg(demo("spectra.csv"))
+        .arg("--samples")
+        .arg(demo("samples.csv"))
+        .arg("--out")
+        .arg(dir.path()));
+    assert_eq!(code, 0, "{err}");
+    assert!(out.contains("lack of fit"), "{out}");
+    let conc = std::fs::read_to_string(dir.path().join("soft_concentrations.csv")).unwrap();
+    assert_eq!(conc.lines().count(), 1 + 54);
+    let spectra = std::fs::read_to_string(dir.path().join("soft_spectra.csv")).unwrap();
+    assert_eq!(
+        spectra.lines().next().unwrap(),
+        "wavelength_nm,species_1,species_2,species_3"
+    );
+    // non-negativity holds (NNLS, not clipping)
+    assert!(
+        spectra
+            .lines()
+            .skip(1)
+            .flat_map(|l| l.split(',').skip(1))
+            .all(|v| v.parse::<f64>().unwrap() >= 0.0)
+    );
 }

@@ -7,6 +7,7 @@
 mod fit;
 mod input;
 mod inspect;
+mod resolve;
 mod simulate;
 mod vanthoff;
 
@@ -38,6 +39,8 @@ enum Command {
     Inspect(inspect::InspectArgs),
     /// Global fit of an equilibrium model's ΔH°, ΔS° (ΔCp°) to all spectra at once.
     Fit(fit::FitArgs),
+    /// Soft resolution (MCR-ALS): profiles and spectra without an equilibrium model.
+    Resolve(resolve::ResolveArgs),
     /// Fit ln K(T) points (van 't Hoff, optional ΔCp°).
     Vanthoff(vanthoff::VanthoffArgs),
     /// Simulate a data set from a model and a plan (for planning experiments).
@@ -88,6 +91,7 @@ fn main() -> ExitCode {
     let outcome = match cli.command {
         Command::Inspect(args) => inspect::run(&args),
         Command::Fit(args) => fit::run(&args),
+        Command::Resolve(args) => resolve::run(&args),
         Command::Vanthoff(args) => vanthoff::run(&args),
         Command::Simulate(args) => simulate::run(&args),
     };
