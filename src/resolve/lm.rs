@@ -9,7 +9,7 @@
 //!
 //! by Cholesky factorisation of the small p × p matrix, JᵀJ formed once per iteration, with
 //! D = diag(JᵀJ)^½ (Marquardt's scaling; Moré, "The Levenberg–Marquardt algorithm:
-//! implementation and theory", Lecture Notes in Mathematics 630 (1978) 105). Steps are accepted
+//! implementation and theory", in G. A. Watson (ed.), Numerical Analysis, Springer (1978) 105). Steps are accepted
 //! when the gain ratio ρ = actual / predicted reduction is positive; λ is updated by Nielsen's
 //! rule (λ ← λ·max(⅓, 1 − (2ρ − 1)³) on success, λ ← λ·ν, ν ← 2ν on failure). Bounds are
 //! honoured by projecting each trial point onto the box. A trial point where the problem cannot
