@@ -233,3 +233,40 @@ fn resolve_writes_soft_profiles_and_spectra() {
             .all(|v| v.parse::<f64>().unwrap() >= 0.0)
     );
 }
+
+#[test]
+fn fit_with_a_bootstrap_writes_its_summary_and_is_silent_without_a_terminal() {
+    let dir = tempfile::tempdir().unwrap();
+    let (code, out, err) = run(bin()
+        .current_dir(env!("CARGO_MANIFEST_DIR"))
+        .args([
+            "fit",
+            "--config",
+            "data/demo/fit.toml",
+            "--bootstrap",
+            "20",
+            "--threads",
+            "2",
+            "--out",
+        ])
+        .arg(dir.path()));
+    assert_eq!(code, 0, "{err}");
+    assert!(out.contains("bootstrap (20 replicates"), "{out}");
+    // stderr is a pipe here: no progress bar drawn
+    assert!(!err.contains("replicates,"), "{err}");
+    let doc: serde_json::Value =
+        serde_json::from_str(&std::fs::read_to_string(dir.path().join("bootstrap.json")).unwrap()).unwrap();
+    assert_eq!(doc["kind"], "bootstrap");
+    // The bootstrap spread of ΔH° of NiBr agrees with the asymptotic standard error within a
+    // factor of two (20 replicates; tests/calibration.rs checks it tightly).
+    let report: serde_json::Value =
+        serde_json::from_str(&std::fs::read_to_string(dir.path().join("report.json")).unwrap()).unwrap();
+    let se = report["data"]["fit"]["thermodynamics"][0]["standard"]["covariance"][1][1]
+        .as_f64()
+        .unwrap()
+        .sqrt();
+    let sd = doc["data"]["thermodynamics"][0]["dh_j_mol"]["standard_deviation"]
+        .as_f64()
+        .unwrap();
+    assert!(sd > se / 2.0 && sd < se * 2.0, "bootstrap sd {sd} vs se {se}");
+}

@@ -23,6 +23,12 @@ enum SpectraTArg {
 }
 
 #[derive(Debug, Clone, Copy, ValueEnum)]
+enum BootstrapKindArg {
+    Residual,
+    Wild,
+}
+
+#[derive(Debug, Clone, Copy, ValueEnum)]
 enum ExpansionArg {
     /// Totals are used as given.
     None,
@@ -71,6 +77,18 @@ pub struct FitArgs {
     /// Keep only wavelengths in this window (nm).
     #[arg(long, num_args = 2, value_names = ["MIN_NM", "MAX_NM"])]
     window: Option<Vec<f64>>,
+    /// Also run a bootstrap with this many replicates (writes bootstrap.json).
+    #[arg(long, value_name = "N")]
+    bootstrap: Option<usize>,
+    /// Bootstrap scheme: resample residuals, or flip their signs (wild).
+    #[arg(long, value_enum, default_value = "residual")]
+    bootstrap_kind: BootstrapKindArg,
+    /// Seed of the bootstrap.
+    #[arg(long, default_value_t = 1)]
+    seed: u64,
+    /// Worker threads for the bootstrap (default: all cores).
+    #[arg(long, value_name = "N")]
+    threads: Option<usize>,
     /// Print the report as JSON instead of a summary.
     #[arg(long)]
     json: bool,
@@ -150,9 +168,64 @@ pub fn run(args: &FitArgs) -> isosbestic::Result<ExitCode> {
         print!("{report}");
         println!("\nwrote {}", args.out.display());
     }
+    if let Some(replicates) = args.bootstrap {
+        run_bootstrap(args, &config, &report, &set, replicates)?;
+    }
     Ok(if report.fit.termination.converged() {
         ExitCode::SUCCESS
     } else {
         ExitCode::from(crate::EXIT_CHECK_FAILED)
     })
+}
+
+/// Bootstrap of a finished fit, with a progress bar on stderr (hidden when stderr is not a
+/// terminal or with --quiet/--json).
+fn run_bootstrap(
+    args: &FitArgs,
+    config: &FitRunConfig,
+    report: &isosbestic::report::fit::FitReport,
+    set: &isosbestic::data::SpectraSet,
+    replicates: usize,
+) -> isosbestic::Result<()> {
+    use indicatif::{ProgressBar, ProgressDrawTarget, ProgressStyle};
+    use isosbestic::resolve::hard::bootstrap::{BootstrapKind, BootstrapOptions, bootstrap};
+    use std::io::IsTerminal;
+    let model = isosbestic::report::fit::read_model(&config.model)?;
+    let target = args.out.join("bootstrap.json");
+    isosbestic::report::fit::guard_outputs(std::slice::from_ref(&target), &report.inputs, args.force)?;
+    let bar = ProgressBar::new(replicates as u64);
+    if args.quiet || args.json || !std::io::stderr().is_terminal() {
+        bar.set_draw_target(ProgressDrawTarget::hidden());
+    } else if let Ok(style) =
+        ProgressStyle::with_template("bootstrap {bar:40} {pos}/{len} replicates, {eta} left")
+    {
+        bar.set_style(style);
+    }
+    let options = BootstrapOptions {
+        replicates,
+        kind: match args.bootstrap_kind {
+            BootstrapKindArg::Residual => BootstrapKind::Residual,
+            BootstrapKindArg::Wild => BootstrapKind::Wild,
+        },
+        seed: args.seed,
+        threads: args.threads,
+    };
+    let progress = |done: usize, _total: usize| bar.set_position(done as u64);
+    let result = bootstrap(set, &model, &config.fit, &report.fit, options, &progress)?;
+    bar.finish_and_clear();
+    isosbestic::report::tables::write_json(&target, "bootstrap", &result)?;
+    if !args.quiet && !args.json {
+        println!("\nbootstrap ({replicates} replicates, {} failed):", result.failed);
+        for t in &result.thermodynamics {
+            println!(
+                "  {:<10} ΔH° sd {:.3} kJ/mol (95 % {:.3} … {:.3}),  ΔS° sd {:.2} J/(K mol)",
+                t.species,
+                t.dh_j_mol.standard_deviation / 1e3,
+                t.dh_j_mol.percentile_2_5 / 1e3,
+                t.dh_j_mol.percentile_97_5 / 1e3,
+                t.ds_j_k_mol.standard_deviation
+            );
+        }
+    }
+    Ok(())
 }
