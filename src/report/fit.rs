@@ -491,7 +491,7 @@ pub fn write_fit_page(
     let measured = plots::measured_spectra_of(set, &palette)?;
     let pure = plots::pure_spectra_of(&report.fit, &report.wavelengths_nm, &palette)?;
     let profiles = plots::concentration_profiles_of(&report.fit, set, &palette)?;
-    let residuals = hard::residual_matrix(set, &report.fit, &report.config.fit);
+    let residuals = hard::residual_matrix(set, &report.fit, &report.config.fit)?;
     let labels: Vec<&str> = report.sample_ids.iter().map(String::as_str).collect();
     let residual_map = plots::residual_map(
         "Residuals (measured − fitted)",

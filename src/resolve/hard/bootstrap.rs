@@ -32,10 +32,10 @@
 //! Replicate k draws from a ChaCha8 stream seeded with `seed` on stream k, so the result for a
 //! seed is the same whatever the number of threads and the order in which replicates finish.
 
-use super::{Baseline, HardFit, HardFitError, HardFitParams, fit};
+use super::{HardFit, HardFitError, HardFitParams, fit};
 use crate::data::SpectraSet;
 use crate::speciation::{Law, SpeciesRole, ValidModel};
-use ndarray::{Array1, Array2};
+use ndarray::Array2;
 use ndarray_linalg::SVD;
 use rand::{Rng, SeedableRng};
 use rand_chacha::ChaCha8Rng;
@@ -185,33 +185,11 @@ pub fn fitted_values(
     let rank = sv.iter().filter(|&&v| v > tol).count();
     let ur = u.slice(ndarray::s![.., ..rank]);
     let mut fitted = ur.dot(&ur.t().dot(d));
-    if params.baseline != Baseline::None {
-        let q = baseline_basis(set.wavelengths_nm(), params.baseline);
+    if let Some(q) = super::baseline_basis(set.wavelengths_nm(), params.baseline) {
         let rest = d - &fitted;
         fitted += &rest.dot(&q).dot(&q.t());
     }
     Ok(fitted)
-}
-
-/// Orthonormal basis (wavelengths × 1 or 2) of the baseline shapes: constant, and λ.
-fn baseline_basis(wavelengths_nm: &Array1<f64>, baseline: Baseline) -> Array2<f64> {
-    let nw = wavelengths_nm.len();
-    let ncol = if baseline == Baseline::OffsetAndSlope {
-        2
-    } else {
-        1
-    };
-    let mut q = Array2::zeros((nw, ncol));
-    q.column_mut(0).fill(1.0 / (nw as f64).sqrt());
-    if ncol == 2 {
-        let mean = wavelengths_nm.mean().unwrap_or(0.0);
-        let centred = wavelengths_nm.mapv(|l| l - mean);
-        let norm = centred.dot(&centred).sqrt();
-        if norm > 0.0 {
-            q.column_mut(1).assign(&(centred / norm));
-        }
-    }
-    q
 }
 
 /// The model with the law parameters set to the fitted values (the refits start there).
@@ -450,7 +428,9 @@ fn fit_replicate(set: &SpectraSet, model: &ValidModel, params: &HardFitParams) -
 #[cfg(test)]
 mod tests {
     use super::*;
+    use crate::resolve::hard::Baseline;
     use crate::simulate::{Band, Noise, PureSpectrum, SeriesPlan, SimulationPlan, simulate};
+    use ndarray::Array1;
 
     fn plan(noise: Noise, offsets: bool) -> SimulationPlan {
         let band = |c: f64, h: f64| Band {
@@ -605,7 +585,7 @@ mod tests {
     #[test]
     fn the_baseline_basis_is_orthonormal() {
         let wl = Array1::from(vec![400.0, 410.0, 430.0, 470.0]);
-        let q = baseline_basis(&wl, Baseline::OffsetAndSlope);
+        let q = super::super::baseline_basis(&wl, Baseline::OffsetAndSlope).unwrap();
         let g = q.t().dot(&q);
         for ((a, b), v) in g.indexed_iter() {
             approx::assert_abs_diff_eq!(*v, if a == b { 1.0 } else { 0.0 }, epsilon = 1e-12);

@@ -55,7 +55,7 @@ use crate::data::SpectraSet;
 use crate::speciation::{
     Derivatives, FormationLaw, SpeciationBatch, SpeciationError, StandardQuantities, ValidModel,
 };
-use ndarray::{Array1, Array2, s};
+use ndarray::{Array1, Array2};
 use ndarray_linalg::{Eigh, SVD, UPLO};
 use problem::{Projection, VarproProblem, sum_sq};
 use serde::{Deserialize, Serialize};
@@ -511,36 +511,27 @@ fn measurement_totals(
     Ok(totals)
 }
 
-/// Baseline shapes W (wavelengths × nb), λ centred and scaled for conditioning.
-fn baseline_shapes(wavelengths_nm: &Array1<f64>, baseline: Baseline) -> Option<Array2<f64>> {
+/// Orthonormal basis Q_W (wavelengths × 1 or 2) of the baseline shapes W = [1, λ]: the
+/// normalised constant and the normalised centred λ (orthogonal to each other by construction).
+/// `None` without baseline terms.
+pub(crate) fn baseline_basis(wavelengths_nm: &Array1<f64>, baseline: Baseline) -> Option<Array2<f64>> {
     let nw = wavelengths_nm.len();
-    let mid = 0.5 * (wavelengths_nm[0] + wavelengths_nm[nw - 1]);
-    let half = (0.5 * (wavelengths_nm[nw - 1] - wavelengths_nm[0])).max(f64::MIN_POSITIVE);
-    match baseline {
-        Baseline::None => None,
-        Baseline::Offset => Some(Array2::ones((nw, 1))),
-        Baseline::OffsetAndSlope => Some(Array2::from_shape_fn((nw, 2), |(j, k)| {
-            if k == 0 {
-                1.0
-            } else {
-                (wavelengths_nm[j] - mid) / half
-            }
-        })),
+    let ncol = match baseline {
+        Baseline::None => return None,
+        Baseline::Offset => 1,
+        Baseline::OffsetAndSlope => 2,
+    };
+    let mut q = Array2::zeros((nw, ncol));
+    q.column_mut(0).fill(1.0 / (nw as f64).sqrt());
+    if ncol == 2 {
+        let mean = wavelengths_nm.mean().unwrap_or(0.0);
+        let centred = wavelengths_nm.mapv(|l| l - mean);
+        let norm = centred.dot(&centred).sqrt();
+        if norm > 0.0 {
+            q.column_mut(1).assign(&(centred / norm));
+        }
     }
-}
-
-/// Orthonormal basis Q_W of the baseline shapes (thin SVD of W, at most 2 columns).
-fn baseline_basis(w: &Array2<f64>) -> Option<Array2<f64>> {
-    let (u, _, _) = w.svd(true, false).ok()?;
-    u.map(|u| u.slice(s![.., ..w.ncols()]).to_owned())
-}
-
-/// D(I − P_W): removes the baseline shapes from every row.
-fn remove_baseline_shapes(d: &Array2<f64>, w: &Array2<f64>) -> Array2<f64> {
-    match baseline_basis(w) {
-        Some(q) => d - &d.dot(&q).dot(&q.t()),
-        None => d.clone(),
-    }
+    Some(q)
 }
 
 /// The reduction G (samples × r) with G·Gᵀ = D̃·D̃ᵀ, D̃ = D(I − P_W), from the Gram matrix:
@@ -550,10 +541,10 @@ fn remove_baseline_shapes(d: &Array2<f64>, w: &Array2<f64>) -> Array2<f64> {
 /// reduction is exact in exact arithmetic; in floating point, eigenvalues carry an absolute
 /// error of about ε·s₁², i.e. the smallest singular values a relative error of about
 /// ε·(s₁/sₖ)² — around 1e-8 for noise-level singular values, negligible for the statistics.
-fn reduce(d: &Array2<f64>, w: Option<&Array2<f64>>) -> Result<Array2<f64>, HardFitError> {
+fn reduce(d: &Array2<f64>, q_w: Option<&Array2<f64>>) -> Result<Array2<f64>, HardFitError> {
     let mut gram = d.dot(&d.t());
-    if let Some(q) = w.and_then(baseline_basis) {
-        let dq = d.dot(&q);
+    if let Some(q) = q_w {
+        let dq = d.dot(q);
         gram -= &dq.dot(&dq.t());
     }
     let (lambda, u) = gram
@@ -619,9 +610,9 @@ fn build_problem<'a>(
     let totals = measurement_totals(set, model, &params.concentrations)?;
     let d = set.absorbance();
     let (ns, nw) = d.dim();
-    let w = baseline_shapes(set.wavelengths_nm(), params.baseline);
-    let nb = w.as_ref().map_or(0, |w| w.ncols());
-    let reduced = reduce(d, w.as_ref())?;
+    let q_w = baseline_basis(set.wavelengths_nm(), params.baseline);
+    let nb = q_w.as_ref().map_or(0, |q| q.ncols());
+    let reduced = reduce(d, q_w.as_ref())?;
     let m = absorbing.len() * (params.spectra_temperature.order() + 1);
     let n_linear = m * nw + nb * ns - m * nb;
     let unknowns = free.len() + n_linear;
@@ -744,35 +735,19 @@ pub fn fit(set: &SpectraSet, model: &ValidModel, params: &HardFitParams) -> Resu
     Ok(fit)
 }
 
-/// The residual matrix (samples × wavelengths) of a fit: (D − X·Sᵀ)(I − P_W), i.e. the data
-/// minus the fitted spectra contributions and baselines.
+/// The residual matrix (samples × wavelengths) of a fit: D − D̂ = Q_X·D·(I − P_W), the data
+/// minus the fitted spectra contributions and baselines (D̂ from [`bootstrap::fitted_values`]).
 ///
 /// `params` must be the settings the fit was made with (spectra temperature form, baseline).
-pub fn residual_matrix(set: &SpectraSet, fit: &HardFit, params: &HardFitParams) -> Array2<f64> {
-    let ns = set.n_samples();
-    let na = fit.absorbing_species.len();
-    let order = params.spectra_temperature.order();
-    let cols: Vec<usize> = fit
-        .absorbing_species
-        .iter()
-        .filter_map(|name| fit.species.iter().position(|s| s == name))
-        .collect();
-    let mut x = Array2::zeros((ns, na * (order + 1)));
-    for (i, sample) in set.samples().iter().enumerate() {
-        let dt = sample.temperature_k - params.spectra_temperature.reference_k();
-        let mut w = sample.path_cm;
-        for o in 0..=order {
-            for (a, &k) in cols.iter().enumerate() {
-                x[[i, o * na + a]] = w * fit.concentrations[[i, k]];
-            }
-            w *= dt;
-        }
-    }
-    let r = set.absorbance() - &x.dot(&fit.spectra.t());
-    match baseline_shapes(set.wavelengths_nm(), params.baseline) {
-        Some(w) => remove_baseline_shapes(&r, &w),
-        None => r,
-    }
+///
+/// # Errors
+/// [`HardFitError::Settings`] if the fit does not belong to `set`.
+pub fn residual_matrix(
+    set: &SpectraSet,
+    fit: &HardFit,
+    params: &HardFitParams,
+) -> Result<Array2<f64>, HardFitError> {
+    Ok(set.absorbance() - &bootstrap::fitted_values(set, params, fit)?)
 }
 
 /// Largest Δχ² at which a distinct second solution is reported as an alternative.
@@ -780,7 +755,6 @@ pub const MIRROR_DELTA_CHI2: f64 = 25.0;
 
 /// Species whose fitted spectrum exceeds its declared `max_absorptivity`.
 fn ceiling_violations(model: &ValidModel, fit: &HardFit) -> Vec<String> {
-    let na = fit.absorbing_species.len();
     fit.absorbing_species
         .iter()
         .enumerate()
@@ -793,7 +767,6 @@ fn ceiling_violations(model: &ValidModel, fit: &HardFit) -> Vec<String> {
             let peak = (0..fit.spectra.nrows())
                 .map(|j| fit.spectra[[j, c]])
                 .fold(f64::NEG_INFINITY, f64::max);
-            let _ = na;
             (peak > ceiling).then(|| format!("{name}: peak ε {peak:.1} > ceiling {ceiling}"))
         })
         .collect()
