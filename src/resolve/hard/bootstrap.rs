@@ -8,7 +8,7 @@
 //! (concentrations of the absorbing species, path lengths and the ε(T) order of the settings
 //! give X) as D̂ = P_X·D + Q_X·D·P_W — the projection of D onto the range of X, plus, with
 //! baselines, the projection of the rest onto the baseline shapes (the same elimination the fit
-//! uses). Any order of [`super::SpectraTemperature`] and any [`Baseline`] is supported.
+//! uses). Any order of [`super::SpectraTemperature`] and any [`super::Baseline`] is supported.
 //!
 //! Residuals of a least-squares fit are smaller than the noise: N entries carry only ν = N − p
 //! degrees of freedom (p = θ plus every linear parameter). Both schemes therefore inflate the
