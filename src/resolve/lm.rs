@@ -1,19 +1,24 @@
 //! Levenberg–Marquardt for nonlinear least squares, as an argmin [`Solver`].
 //!
-//! Minimises ½‖r(θ)‖² for a problem that implements argmin's [`Operator`] (θ ↦ r) and
-//! [`Jacobian`] (θ ↦ J = ∂r/∂θ). Each iteration solves the damped normal equations
+//! Minimises ½‖r(θ)‖². Each iteration solves the damped normal equations
 //!
 //! ```text
 //! (JᵀJ + λ·diag(JᵀJ)) δ = −Jᵀr
 //! ```
 //!
-//! by Cholesky factorisation of the small p × p matrix, JᵀJ formed once per iteration, with
-//! D = diag(JᵀJ)^½ (Marquardt's scaling; Moré, "The Levenberg–Marquardt algorithm:
-//! implementation and theory", in G. A. Watson (ed.), Numerical Analysis, Springer (1978) 105). Steps are accepted
-//! when the gain ratio ρ = actual / predicted reduction is positive; λ is updated by Nielsen's
-//! rule (λ ← λ·max(⅓, 1 − (2ρ − 1)³) on success, λ ← λ·ν, ν ← 2ν on failure). Bounds are
-//! honoured by projecting each trial point onto the box. A trial point where the problem cannot
-//! be evaluated (its `apply` or `jacobian` returns an error) is treated as a rejected step.
+//! by Cholesky factorisation of the small p × p matrix, with D = diag(JᵀJ)^½ (Marquardt's
+//! scaling; Moré, "The Levenberg–Marquardt algorithm: implementation and theory", in G. A.
+//! Watson (ed.), Numerical Analysis, Springer (1978) 105). Steps are accepted when the gain ratio
+//! ρ = actual / predicted reduction is positive; λ is updated by Nielsen's rule
+//! (λ ← λ·max(⅓, 1 − (2ρ − 1)³) on success, λ ← λ·ν, ν ← 2ν on failure). Bounds are honoured by
+//! projecting each trial point onto the box. A trial point where the problem cannot be evaluated
+//! (it returns an error) is treated as a rejected step.
+//!
+//! The solver needs only the cost and, at accepted points, the gradient Jᵀr and the
+//! Gauss–Newton matrix JᵀJ ([`GaussNewtonProblem`]). Problems that can form these without the
+//! residual vector and its Jacobian (the global fit does, see `resolve::hard`) implement the
+//! trait directly; any problem with argmin's [`Operator`] (θ ↦ r) and [`Jacobian`] (θ ↦ J) is
+//! adapted by [`Residuals`], which [`minimise`] applies for you.
 //!
 //! Termination is reported as a [`LmTermination`]: which convergence test fired, the iteration
 //! limit, or a stall (no decrease possible). The final state is returned in every case.
@@ -23,13 +28,77 @@ use argmin::core::{
     Error as ArgminError, Executor, Jacobian, KV, Operator, Problem, Solver, State, TerminationReason,
     TerminationStatus,
 };
-use ndarray::{Array1, Array2, Axis};
+use ndarray::{Array1, Array2};
 use ndarray_linalg::SolveH;
 use serde::{Deserialize, Serialize};
 
-/// The state type the solver runs on: parameters θ, Jacobian J and residuals r as ndarray
-/// arrays, cost ½‖r‖².
-pub type LmState = IterState<Array1<f64>, (), Array2<f64>, (), Array1<f64>, f64>;
+/// The state type the solver runs on: parameters θ, gradient Jᵀr and Gauss–Newton matrix JᵀJ
+/// (argmin's gradient and Hessian slots) as ndarray arrays, cost ½‖r‖².
+pub type LmState = IterState<Array1<f64>, Array1<f64>, (), Array2<f64>, (), f64>;
+
+/// Cost, gradient and Gauss–Newton matrix of a least-squares problem at one point.
+#[derive(Debug, Clone)]
+pub struct NormalEquations {
+    /// ½‖r‖².
+    pub cost: f64,
+    /// Jᵀr (the gradient of the cost).
+    pub gradient: Array1<f64>,
+    /// JᵀJ.
+    pub gauss_newton: Array2<f64>,
+}
+
+/// A nonlinear least-squares problem as the solver sees it: the cost ½‖r(θ)‖² at trial points
+/// and the normal equations at accepted points.
+pub trait GaussNewtonProblem {
+    /// ½‖r(θ)‖².
+    ///
+    /// # Errors
+    /// When the problem cannot be evaluated at θ (the step is then rejected).
+    fn cost(&self, theta: &Array1<f64>) -> Result<f64, ArgminError>;
+    /// Cost, Jᵀr and JᵀJ at θ.
+    ///
+    /// # Errors
+    /// When the problem cannot be evaluated at θ.
+    fn normal_equations(&self, theta: &Array1<f64>) -> Result<NormalEquations, ArgminError>;
+}
+
+impl<T: GaussNewtonProblem + ?Sized> GaussNewtonProblem for &T {
+    fn cost(&self, theta: &Array1<f64>) -> Result<f64, ArgminError> {
+        (**self).cost(theta)
+    }
+    fn normal_equations(&self, theta: &Array1<f64>) -> Result<NormalEquations, ArgminError> {
+        (**self).normal_equations(theta)
+    }
+}
+
+/// Adapts a problem given as residuals (argmin [`Operator`]) and their Jacobian (argmin
+/// [`Jacobian`]) to [`GaussNewtonProblem`] by forming Jᵀr and JᵀJ.
+#[derive(Debug, Clone)]
+pub struct Residuals<P>(pub P);
+
+impl<P> GaussNewtonProblem for Residuals<P>
+where
+    P: Operator<Param = Array1<f64>, Output = Array1<f64>>
+        + Jacobian<Param = Array1<f64>, Jacobian = Array2<f64>>,
+{
+    fn cost(&self, theta: &Array1<f64>) -> Result<f64, ArgminError> {
+        let r = self.0.apply(theta)?;
+        Ok(if r.iter().all(|v| v.is_finite()) {
+            0.5 * r.dot(&r)
+        } else {
+            f64::INFINITY
+        })
+    }
+    fn normal_equations(&self, theta: &Array1<f64>) -> Result<NormalEquations, ArgminError> {
+        let r = self.0.apply(theta)?;
+        let j = self.0.jacobian(theta)?;
+        Ok(NormalEquations {
+            cost: 0.5 * r.dot(&r),
+            gradient: j.t().dot(&r),
+            gauss_newton: j.t().dot(&j),
+        })
+    }
+}
 
 /// Which convergence test ended the fit.
 #[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
@@ -135,19 +204,7 @@ impl LevenbergMarquardt {
     }
 }
 
-fn half_norm2(r: &Array1<f64>) -> f64 {
-    0.5 * r.dot(r)
-}
-
-fn finite_residuals(r: &Array1<f64>) -> bool {
-    r.iter().all(|v| v.is_finite())
-}
-
-impl<O> Solver<O, LmState> for LevenbergMarquardt
-where
-    O: Operator<Param = Array1<f64>, Output = Array1<f64>>
-        + Jacobian<Param = Array1<f64>, Jacobian = Array2<f64>>,
-{
+impl<O: GaussNewtonProblem> Solver<O, LmState> for LevenbergMarquardt {
     fn name(&self) -> &str {
         "Levenberg-Marquardt"
     }
@@ -162,10 +219,15 @@ where
             "initial parameters are required"
         ))?;
         self.project(&mut x);
-        let r = problem.apply(&x)?;
-        let j = problem.jacobian(&x)?;
-        let cost = half_norm2(&r);
-        Ok((state.param(x).residuals(r).jacobian(j).cost(cost), None))
+        let ne = problem.problem("normal_equations_count", |p| p.normal_equations(&x))?;
+        Ok((
+            state
+                .param(x)
+                .gradient(ne.gradient)
+                .hessian(ne.gauss_newton)
+                .cost(ne.cost),
+            None,
+        ))
     }
 
     fn next_iter(
@@ -176,27 +238,29 @@ where
         let x = state
             .take_param()
             .ok_or_else(argmin::argmin_error_closure!(NotInitialized, "no parameters"))?;
-        let r = state
-            .take_residuals()
-            .ok_or_else(argmin::argmin_error_closure!(NotInitialized, "no residuals"))?;
-        let j = state
-            .take_jacobian()
-            .ok_or_else(argmin::argmin_error_closure!(NotInitialized, "no Jacobian"))?;
+        let g = state
+            .take_gradient()
+            .ok_or_else(argmin::argmin_error_closure!(NotInitialized, "no gradient"))?;
+        let jtj = state.take_hessian().ok_or_else(argmin::argmin_error_closure!(
+            NotInitialized,
+            "no Gauss-Newton matrix"
+        ))?;
         let cost = state.get_cost();
-        let g = j.t().dot(&r);
+        let keep = |state: LmState, x, g, jtj| state.param(x).gradient(g).hessian(jtj).cost(cost);
         let gnorm = g.iter().fold(0.0f64, |m, v| m.max(v.abs()));
         if gnorm <= self.params.gradient_tolerance * (2.0 * cost).sqrt().max(f64::MIN_POSITIVE)
             || gnorm == 0.0
         {
             self.termination = LmTermination::Converged(ConvergenceTest::Gradient);
-            return Ok((state.param(x).residuals(r).jacobian(j).cost(cost), None));
+            return Ok((keep(state, x, g, jtj), None));
         }
         // Marquardt scaling, kept away from zero for columns that vanish.
-        let mut diag: Array1<f64> = j.map_axis(Axis(0), |c| c.dot(&c).sqrt());
+        let mut diag: Array1<f64> = jtj.diag().mapv(|v| v.max(0.0).sqrt());
         let dmax = diag.iter().fold(0.0f64, |m, v| m.max(*v));
         diag.mapv_inplace(|d| d.max(1e-12 * dmax.max(f64::MIN_POSITIVE)));
         let n = x.len();
-        let jtj = j.t().dot(&j);
+        // predicted reduction of the quadratic model: −(gᵀδ + ½ δᵀJᵀJδ)
+        let predicted_reduction = |step: &Array1<f64>| -(g.dot(step) + 0.5 * step.dot(&jtj.dot(step)));
         for attempt in 0..60 {
             // (JᵀJ + λ D²) δ = −Jᵀr, solved by Cholesky on the p × p system; the scaled,
             // damped matrix is positive definite for λ > 0.
@@ -220,8 +284,7 @@ where
             if snorm <= self.params.step_tolerance * (xnorm + self.params.step_tolerance) {
                 // A tiny first step is convergence; a step made tiny by damping after rejections
                 // is convergence only if the model predicts no further decrease worth having.
-                let jd = j.dot(&step);
-                let predicted = -(g.dot(&step) + 0.5 * jd.dot(&jd));
+                let predicted = predicted_reduction(&step);
                 self.termination = if attempt == 0 {
                     LmTermination::Converged(ConvergenceTest::StepSize)
                 } else if predicted <= self.params.cost_tolerance * cost.max(f64::MIN_POSITIVE) * 1e3 {
@@ -229,27 +292,24 @@ where
                 } else {
                     LmTermination::Stalled
                 };
-                return Ok((state.param(x).residuals(r).jacobian(j).cost(cost), None));
+                return Ok((keep(state, x, g, jtj), None));
             }
-            let r_trial = problem.apply(&trial)?;
-            let cost_trial = if finite_residuals(&r_trial) {
-                half_norm2(&r_trial)
-            } else {
-                f64::INFINITY
-            };
-            // predicted reduction of the linear model: −(gᵀδ + ½‖Jδ‖²)
-            let jd = j.dot(&step);
-            let predicted = -(g.dot(&step) + 0.5 * jd.dot(&jd));
+            let cost_trial = problem
+                .problem("cost_count", |p| p.cost(&trial))
+                .ok()
+                .filter(|c| c.is_finite())
+                .unwrap_or(f64::INFINITY);
+            let predicted = predicted_reduction(&step);
             let actual = cost - cost_trial;
             let rho = if predicted > 0.0 { actual / predicted } else { -1.0 };
             if rho > 1e-4 && actual > 0.0 {
-                self.damping *= (1.0f64 / 3.0).max(1.0 - (2.0 * rho - 1.0).powi(3));
-                self.nu = 2.0;
-                let Ok(j_trial) = problem.jacobian(&trial) else {
+                let Ok(ne) = problem.problem("normal_equations_count", |p| p.normal_equations(&trial)) else {
                     self.damping *= self.nu;
                     self.nu *= 2.0;
                     continue;
                 };
+                self.damping *= (1.0f64 / 3.0).max(1.0 - (2.0 * rho - 1.0).powi(3));
+                self.nu = 2.0;
                 if actual <= self.params.cost_tolerance * cost {
                     self.termination = LmTermination::Converged(ConvergenceTest::CostReduction);
                 }
@@ -257,9 +317,9 @@ where
                 return Ok((
                     state
                         .param(trial)
-                        .residuals(r_trial)
-                        .jacobian(j_trial)
-                        .cost(cost_trial),
+                        .gradient(ne.gradient)
+                        .hessian(ne.gauss_newton)
+                        .cost(ne.cost),
                     Some(kv),
                 ));
             }
@@ -270,7 +330,7 @@ where
             }
         }
         self.termination = LmTermination::Stalled;
-        Ok((state.param(x).residuals(r).jacobian(j).cost(cost), None))
+        Ok((keep(state, x, g, jtj), None))
     }
 
     fn terminate(&mut self, _state: &LmState) -> TerminationStatus {
@@ -289,10 +349,10 @@ where
 pub struct LmOutcome {
     /// Final parameters θ.
     pub param: Array1<f64>,
-    /// Final residuals r(θ).
-    pub residuals: Array1<f64>,
-    /// Jacobian at θ.
-    pub jacobian: Array2<f64>,
+    /// Gradient Jᵀr at θ.
+    pub gradient: Array1<f64>,
+    /// Gauss–Newton matrix JᵀJ at θ (the covariance is σ² times its inverse).
+    pub gauss_newton: Array2<f64>,
     /// Final cost ½‖r‖².
     pub cost: f64,
     /// Iterations run.
@@ -301,7 +361,9 @@ pub struct LmOutcome {
     pub termination: LmTermination,
 }
 
-/// Runs Levenberg–Marquardt on `problem` from `start`.
+/// Runs Levenberg–Marquardt on a problem given as residuals and their Jacobian (argmin
+/// [`Operator`] and [`Jacobian`]) from `start`; see [`minimise_normal_equations`] for problems
+/// that form Jᵀr and JᵀJ themselves.
 ///
 /// # Errors
 /// Whatever the problem's `apply`/`jacobian` return (e.g. a speciation failure), wrapped by
@@ -344,6 +406,45 @@ where
     O: Operator<Param = Array1<f64>, Output = Array1<f64>>
         + Jacobian<Param = Array1<f64>, Jacobian = Array2<f64>>,
 {
+    minimise_normal_equations(Residuals(problem), start, params)
+}
+
+/// Runs Levenberg–Marquardt on a [`GaussNewtonProblem`] from `start`.
+///
+/// # Errors
+/// Whatever the problem returns at the start point, wrapped by argmin (failures at trial points
+/// are rejected steps, not errors).
+///
+/// # Examples
+/// The Gauss–Newton form of r = (θ₀ − 3, 2(θ₁ + 1)): cost ½‖r‖², Jᵀr, JᵀJ = diag(1, 4).
+/// ```
+/// use argmin::core::Error;
+/// use isosbestic::resolve::lm::{minimise_normal_equations, GaussNewtonProblem, LmParams, NormalEquations};
+/// use ndarray::{array, Array1};
+/// struct Shifted;
+/// impl GaussNewtonProblem for Shifted {
+///     fn cost(&self, p: &Array1<f64>) -> Result<f64, Error> {
+///         Ok(0.5 * ((p[0] - 3.0).powi(2) + 4.0 * (p[1] + 1.0).powi(2)))
+///     }
+///     fn normal_equations(&self, p: &Array1<f64>) -> Result<NormalEquations, Error> {
+///         Ok(NormalEquations {
+///             cost: self.cost(p)?,
+///             gradient: array![p[0] - 3.0, 4.0 * (p[1] + 1.0)],
+///             gauss_newton: array![[1.0, 0.0], [0.0, 4.0]],
+///         })
+///     }
+/// }
+/// let out = minimise_normal_equations(Shifted, array![0.0, 0.0], LmParams::default())?;
+/// assert!(out.termination.converged());
+/// approx::assert_abs_diff_eq!(out.param[0], 3.0, epsilon = 1e-8);
+/// approx::assert_abs_diff_eq!(out.param[1], -1.0, epsilon = 1e-8);
+/// # Ok::<(), argmin::core::Error>(())
+/// ```
+pub fn minimise_normal_equations<O: GaussNewtonProblem>(
+    problem: O,
+    start: Array1<f64>,
+    params: LmParams,
+) -> Result<LmOutcome, ArgminError> {
     let max_iter = params.max_iterations;
     let solver = LevenbergMarquardt::new(params);
     let result = Executor::new(problem, solver)
@@ -359,8 +460,8 @@ where
     let cost = state.get_cost();
     Ok(LmOutcome {
         param: state.take_param().unwrap_or_default(),
-        residuals: state.take_residuals().unwrap_or_default(),
-        jacobian: state.take_jacobian().unwrap_or_else(|| Array2::zeros((0, 0))),
+        gradient: state.take_gradient().unwrap_or_default(),
+        gauss_newton: state.take_hessian().unwrap_or_else(|| Array2::zeros((0, 0))),
         cost,
         iterations,
         termination,

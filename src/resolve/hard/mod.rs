@@ -56,7 +56,7 @@ use crate::speciation::{
     Derivatives, FormationLaw, SpeciationBatch, SpeciationError, StandardQuantities, ValidModel,
 };
 use ndarray::{Array1, Array2};
-use ndarray_linalg::{Eigh, SVD, UPLO};
+use ndarray_linalg::{Eigh, JobSvd, SVDDC, UPLO};
 use problem::{Projection, VarproProblem, sum_sq};
 use serde::{Deserialize, Serialize};
 use std::sync::Mutex;
@@ -534,36 +534,78 @@ pub(crate) fn baseline_basis(wavelengths_nm: &Array1<f64>, baseline: Baseline) -
     Some(q)
 }
 
-/// The reduction G (samples × r) with G·Gᵀ = D̃·D̃ᵀ, D̃ = D(I − P_W), from the Gram matrix:
-/// D̃D̃ᵀ = DDᵀ − (DQ_W)(DQ_W)ᵀ = U·Λ·Uᵀ, G = U·Λ^½. One pass over D and no copy of it.
+/// The reduction G (samples × r) with G·Gᵀ = D̃·D̃ᵀ, D̃ = D(I − P_W): the Gram matrix
+/// D̃D̃ᵀ = DDᵀ − (DQ_W)(DQ_W)ᵀ from one pass over D, then its Cholesky factor with diagonal
+/// pivoting, G = Πᵀ·L (Higham, "Accuracy and Stability of Numerical Algorithms", 2nd ed., SIAM
+/// (2002), §10.3). No copy of D is made.
 ///
 /// Every quantity of the fit (‖Q_X D̃‖, JᵀJ, Jᵀr) depends on D̃ only through D̃D̃ᵀ, so the
-/// reduction is exact in exact arithmetic; in floating point, eigenvalues carry an absolute
-/// error of about ε·s₁², i.e. the smallest singular values a relative error of about
-/// ε·(s₁/sₖ)² — around 1e-8 for noise-level singular values, negligible for the statistics.
+/// reduction is exact in exact arithmetic. The factorisation stops when the largest remaining
+/// pivot falls below samples·ε times the largest diagonal entry; what is dropped then has a trace
+/// below samples²·ε·‖D̃‖²_max — the rounding level of the Gram matrix itself, far below any
+/// noise a spectrometer records. It costs samples³/3 operations, a small fraction of the pass
+/// over D.
 fn reduce(d: &Array2<f64>, q_w: Option<&Array2<f64>>) -> Result<Array2<f64>, HardFitError> {
     let mut gram = d.dot(&d.t());
     if let Some(q) = q_w {
         let dq = d.dot(q);
         gram -= &dq.dot(&dq.t());
     }
-    let (lambda, u) = gram
-        .eigh(UPLO::Lower)
-        .map_err(|e| HardFitError::Solver(format!("eigen-decomposition of DDᵀ failed: {e}")))?;
-    let lmax = lambda.iter().fold(0.0f64, |m, v| m.max(*v));
-    let tol = lmax * (d.nrows() as f64) * f64::EPSILON;
-    let keep: Vec<usize> = (0..lambda.len()).rev().filter(|&k| lambda[k] > tol).collect();
-    let keep = if keep.is_empty() {
-        vec![lambda.len() - 1]
-    } else {
-        keep
-    };
-    let mut g = Array2::zeros((d.nrows(), keep.len()));
-    for (c, &k) in keep.iter().enumerate() {
-        let sk = lambda[k].max(0.0).sqrt();
-        g.column_mut(c).assign(&(&u.column(k) * sk));
+    let g = pivoted_cholesky(gram);
+    if g.iter().any(|v| !v.is_finite()) {
+        return Err(HardFitError::Solver(
+            "the data hold values that are not finite".into(),
+        ));
     }
     Ok(g)
+}
+
+/// Cholesky factorisation with diagonal pivoting of a symmetric positive semi-definite matrix:
+/// returns G (n × r) with G·Gᵀ = A up to the dropped trailing block (pivots below n·ε·max
+/// diagonal). At least one column is returned.
+fn pivoted_cholesky(mut a: Array2<f64>) -> Array2<f64> {
+    use ndarray::{Axis, s};
+    let n = a.nrows();
+    let mut perm: Vec<usize> = (0..n).collect();
+    let dmax = a.diag().iter().fold(0.0f64, |m, v| m.max(*v));
+    let tol = dmax * n as f64 * f64::EPSILON;
+    // Row k of `a` becomes row k of U = Lᵀ (pivoted order); the trailing block is kept whole
+    // (both triangles) so rows stay contiguous in the rank-one updates.
+    let mut rank = 0;
+    for k in 0..n {
+        let (p, piv) = (k..n).fold((k, f64::NEG_INFINITY), |(bi, bv), i| {
+            if a[[i, i]] > bv { (i, a[[i, i]]) } else { (bi, bv) }
+        });
+        if !(piv > tol) {
+            break;
+        }
+        if p != k {
+            for j in 0..n {
+                a.swap([k, j], [p, j]);
+            }
+            for i in 0..n {
+                a.swap([i, k], [i, p]);
+            }
+            perm.swap(k, p);
+        }
+        let ukk = piv.sqrt();
+        a[[k, k]] = ukk;
+        a.slice_mut(s![k, k + 1..]).mapv_inplace(|v| v / ukk);
+        rank = k + 1;
+        let (head, mut tail) = a.view_mut().split_at(Axis(0), k + 1);
+        let u = head.slice(s![k, k + 1..]);
+        for (i, mut row) in tail.rows_mut().into_iter().enumerate() {
+            let ui = u[i];
+            row.slice_mut(s![k + 1..]).scaled_add(-ui, &u);
+        }
+    }
+    let mut g = Array2::zeros((n, rank.max(1)));
+    for (i, &row) in perm.iter().enumerate() {
+        for c in 0..rank.min(i + 1) {
+            g[[row, c]] = a[[c, i]];
+        }
+    }
+    g
 }
 
 /// Sets up the variable-projection problem: totals, baseline removal, exact reduction.
@@ -664,7 +706,7 @@ pub fn fit(set: &SpectraSet, model: &ValidModel, params: &HardFitParams) -> Resu
     let mut best: Option<lm::LmOutcome> = None;
     let mut last_error = None;
     for start in starts.iter().take(3) {
-        match lm::minimise(&problem, start.clone(), solver.clone()) {
+        match lm::minimise_normal_equations(&problem, start.clone(), solver.clone()) {
             Ok(out) => {
                 if best.as_ref().is_none_or(|b| out.cost < b.cost) {
                     best = Some(out);
@@ -689,7 +731,7 @@ pub fn fit(set: &SpectraSet, model: &ValidModel, params: &HardFitParams) -> Resu
         starts
             .iter()
             .find(|x| signs(x) != best_signs)
-            .and_then(|x| lm::minimise(&problem, x.clone(), solver.clone()).ok())
+            .and_then(|x| lm::minimise_normal_equations(&problem, x.clone(), solver.clone()).ok())
     };
     let finish = |o: lm::LmOutcome| -> Result<HardFit, HardFitError> {
         let mut fit = summarise(set, model, &problem, &free, o, params, nw, n_linear, starts_tried)?;
@@ -732,7 +774,27 @@ pub fn fit(set: &SpectraSet, model: &ValidModel, params: &HardFitParams) -> Resu
             fit = keep;
         }
     }
+    let theta: Array1<f64> = fit.parameters.iter().map(|p| p.value).collect();
+    fit.residual_singular_values = residual_singular_values(&problem, &theta)?;
     Ok(fit)
+}
+
+/// Singular values of the reduced residual Q_X·G at θ (those of the full residual matrix, since
+/// G·Gᵀ = D̃·D̃ᵀ).
+fn residual_singular_values(
+    problem: &VarproProblem<'_>,
+    theta: &Array1<f64>,
+) -> Result<Vec<f64>, HardFitError> {
+    let (c, _) = problem
+        .speciate(theta, false)
+        .map_err(|e| HardFitError::Solver(e.to_string()))?;
+    let proj = problem
+        .project(problem.design(c.view()))
+        .map_err(|e| HardFitError::Solver(e.to_string()))?;
+    let r = problem.residual_matrix(&proj);
+    Ok(r.svddc(JobSvd::None)
+        .map(|(_, sv, _)| sv.to_vec())
+        .unwrap_or_default())
 }
 
 /// The residual matrix (samples × wavelengths) of a fit: D − D̂ = Q_X·D·(I − P_W), the data
@@ -748,6 +810,61 @@ pub fn residual_matrix(
     params: &HardFitParams,
 ) -> Result<Array2<f64>, HardFitError> {
     Ok(set.absorbance() - &bootstrap::fitted_values(set, params, fit)?)
+}
+
+/// σ²(JᵀJ)⁻¹ with undetermined directions marked (see `summarise`); all NaN when JᵀJ is empty
+/// or its eigen-decomposition fails.
+fn covariance_from_gauss_newton(jtj: &Array2<f64>, sigma: f64) -> Array2<f64> {
+    let np = jtj.nrows();
+    let mut cov = Array2::from_elem((np, np), f64::NAN);
+    if np == 0 || jtj.ncols() != np {
+        return cov;
+    }
+    let scale: Vec<f64> = (0..np).map(|a| jtj[[a, a]].max(0.0).sqrt()).collect();
+    let mut undetermined = vec![false; np];
+    let scaled = Array2::from_shape_fn((np, np), |(a, b)| {
+        if scale[a] > 0.0 && scale[b] > 0.0 {
+            jtj[[a, b]] / (scale[a] * scale[b])
+        } else {
+            0.0
+        }
+    });
+    let Ok((lambda, vecs)) = scaled.eigh(UPLO::Lower) else {
+        return cov;
+    };
+    cov.fill(0.0);
+    let lmax = lambda.iter().fold(0.0f64, |m, v| m.max(*v));
+    for k in 0..np {
+        let vk = vecs.column(k);
+        if lambda[k] > lmax * 1e-14 {
+            for a in 0..np {
+                for b in 0..np {
+                    cov[[a, b]] += sigma * sigma * vk[a] * vk[b] / (lambda[k] * scale[a] * scale[b]);
+                }
+            }
+        } else {
+            for a in 0..np {
+                if vk[a].abs() > 1e-8 {
+                    undetermined[a] = true;
+                }
+            }
+        }
+    }
+    for a in 0..np {
+        if !(scale[a] > 0.0) {
+            undetermined[a] = true;
+        }
+    }
+    for a in 0..np {
+        if undetermined[a] {
+            for b in 0..np {
+                cov[[a, b]] = f64::NAN;
+                cov[[b, a]] = f64::NAN;
+            }
+            cov[[a, a]] = f64::INFINITY;
+        }
+    }
+    cov
 }
 
 /// Largest Δχ² at which a distinct second solution is reported as an alternative.
@@ -798,6 +915,10 @@ fn bounds(free: &[FreeParameter], params: &HardFitParams) -> (Vec<f64>, Vec<f64>
     (lower, upper)
 }
 
+/// Spectra used to rank the starting points when there are more (evenly spread over the
+/// samples' order, which covers every series and temperature range).
+const START_SCORING_SAMPLES: usize = 24;
+
 /// Largest number of grid points scored when choosing starting points.
 const MAX_START_POINTS: usize = 2000;
 
@@ -806,14 +927,15 @@ const MAX_START_POINTS: usize = 2000;
 /// ± 15, ± 40 kJ/mol). ΔH° must be part of the grid: at ΔH° = 0 all samples of one series have
 /// the same composition, and with fewer series than absorbing species the residual does not
 /// depend on log β at all. Grids larger than [`MAX_START_POINTS`] are subsampled with a fixed
-/// seed. Points are ranked by the cost (no Jacobian needed).
+/// seed. Points are ranked by the cost (no Jacobian needed), on at most
+/// [`START_SCORING_SAMPLES`] spectra.
 fn start_points(
     problem: &VarproProblem<'_>,
     free: &[FreeParameter],
     start0: &Array1<f64>,
     params: &HardFitParams,
 ) -> Result<Vec<Array1<f64>>, HardFitError> {
-    use argmin::core::Operator;
+    use crate::resolve::lm::GaussNewtonProblem;
     use rand::Rng;
     let g = params.start_grid;
     let axes: Vec<Vec<f64>> = free
@@ -852,11 +974,23 @@ fn start_points(
         let mut rng = crate::testing::rng(0x5EED);
         candidates.extend((0..MAX_START_POINTS).map(|_| point(rng.random_range(0..total))));
     }
+    // Scoring only ranks the starts: with many spectra, a spread subset of them (its rows of G,
+    // exact for that subset) ranks them as well at a fraction of the cost.
+    let ns = problem.temperatures_k.len();
+    let subset;
+    let n_score =
+        START_SCORING_SAMPLES.max(4 * problem.absorbing.len() * (problem.spectra_temperature.order() + 1));
+    let scorer = if ns > n_score {
+        let rows: Vec<usize> = (0..n_score).map(|k| k * (ns - 1) / (n_score - 1)).collect();
+        subset = problem.restricted(&rows);
+        &subset
+    } else {
+        problem
+    };
     let mut scored: Vec<(f64, Array1<f64>)> = candidates
         .into_iter()
         .filter_map(|x| {
-            let r = problem.apply(&x).ok()?;
-            let c = r.dot(&r);
+            let c = scorer.cost(&x).ok()?;
             c.is_finite().then_some((c, x))
         })
         .collect();
@@ -892,52 +1026,20 @@ fn summarise(
         .map_err(|e| HardFitError::Solver(e.to_string()))?;
     let r = problem.residual_matrix(&proj);
     let rss = sum_sq(r.view());
-    let residual_singular_values = r
-        .svd(false, false)
-        .map(|(_, sv, _)| sv.to_vec())
-        .unwrap_or_default();
+    // filled in by `fit` for the solution it keeps (an SVD per alternative is not needed)
+    let residual_singular_values = Vec::new();
     let dof = ns * nw - free.len() - n_linear;
     let residual_sd = (rss / dof as f64).sqrt();
     let sigma = params.known_noise.unwrap_or(residual_sd);
-    // Cov = σ² (JᵀJ)⁻¹ by SVD of J. Directions of the parameter space the data do not
-    // determine (singular values below 1e-10·s_max) get infinite variance: every parameter
-    // with a component along such a direction has an infinite variance and undefined (NaN)
-    // covariances. They are never reported as precise.
+    // Cov = σ² (JᵀJ)⁻¹ from the eigen-decomposition of JᵀJ scaled to unit diagonal
+    // (H = S·C·S, S = diag(JᵀJ)^½, so the threshold does not depend on the parameters' units).
+    // Directions of the parameter space the data do not determine (eigenvalues of C below
+    // 1e-14 of the largest, i.e. singular values of the scaled J below 1e-7 of the largest —
+    // the level at which JᵀJ formed in floating point no longer resolves them) get infinite
+    // variance: every parameter with a component along such a direction has an infinite
+    // variance and undefined (NaN) covariances. They are never reported as precise.
     let np = free.len();
-    let mut cov = Array2::from_elem((np, np), f64::NAN);
-    if out.jacobian.nrows() > 0
-        && let Ok((_, sv, Some(vt))) = out.jacobian.svd(false, true)
-    {
-        cov.fill(0.0);
-        let smax = sv.iter().fold(0.0f64, |m, v| m.max(*v));
-        let mut undetermined = vec![false; np];
-        for k in 0..np {
-            let s_k = sv.get(k).copied().unwrap_or(0.0);
-            let vk = vt.row(k);
-            if s_k > smax * 1e-10 {
-                for a in 0..np {
-                    for b in 0..np {
-                        cov[[a, b]] += sigma * sigma * vk[a] * vk[b] / (s_k * s_k);
-                    }
-                }
-            } else {
-                for a in 0..np {
-                    if vk[a].abs() > 1e-8 {
-                        undetermined[a] = true;
-                    }
-                }
-            }
-        }
-        for a in 0..np {
-            if undetermined[a] {
-                for b in 0..np {
-                    cov[[a, b]] = f64::NAN;
-                    cov[[b, a]] = f64::NAN;
-                }
-                cov[[a, a]] = f64::INFINITY;
-            }
-        }
-    }
+    let cov = covariance_from_gauss_newton(&out.gauss_newton, sigma);
     let se: Vec<f64> = (0..np)
         .map(|p| {
             if cov[[p, p]].is_nan() {
@@ -1127,6 +1229,71 @@ mod tests {
                 err <= 1e-5 * scale + 1e-14,
                 "parameter {p}: max |J − FD| = {err}, scale {scale}"
             );
+        }
+    }
+
+    #[test]
+    fn the_pivoted_cholesky_factor_reproduces_full_and_rank_deficient_gram_matrices() {
+        let mut rng = crate::testing::rng(11);
+        use rand::Rng;
+        for (n, k) in [(6usize, 6usize), (7, 3), (30, 12), (5, 1)] {
+            // A = B·Bᵀ with B n × k: rank k
+            let b = Array2::from_shape_fn((n, k), |_| rng.random_range(-1.0..1.0));
+            let a = b.dot(&b.t());
+            let g = pivoted_cholesky(a.clone());
+            assert_eq!(g.ncols(), k, "rank of an {n} × {n} Gram matrix of rank {k}");
+            let err = (&g.dot(&g.t()) - &a).iter().fold(0.0f64, |m, v| m.max(v.abs()));
+            assert!(err < 1e-12, "n {n}, k {k}: max |GGᵀ − A| = {err}");
+        }
+        // the zero matrix: one zero column
+        let g = pivoted_cholesky(Array2::zeros((4, 4)));
+        assert_eq!(g.dim(), (4, 1));
+    }
+
+    #[test]
+    fn the_normal_equations_equal_those_formed_from_the_explicit_jacobian() {
+        use crate::resolve::lm::GaussNewtonProblem;
+        let model = two_complex_model(0.4, 12_000.0, -0.2, 35_000.0);
+        let mut plan = small_plan();
+        plan.noise = Noise::Absorbance { sd_au: 2e-3 };
+        plan.offset_sd_au = 5e-3;
+        let sim = simulate(&model, &plan).unwrap();
+        let free = free_parameters(&model);
+        for order in [0usize, 1] {
+            let params = HardFitParams {
+                baseline: Baseline::Offset,
+                spectra_temperature: match order {
+                    0 => SpectraTemperature::Constant,
+                    1 => SpectraTemperature::Linear { reference_k: 310.0 },
+                    _ => SpectraTemperature::Quadratic { reference_k: 310.0 },
+                },
+                ..HardFitParams::default()
+            };
+            let (problem, _) = build_problem(&sim.set, &model, &free, &params).unwrap();
+            let theta = ndarray::array![0.7, 5_000.0, 0.3, 20_000.0];
+            let r = problem.apply(&theta).unwrap();
+            let j = problem.jacobian(&theta).unwrap();
+            let ne = problem.normal_equations(&theta).unwrap();
+            approx::assert_relative_eq!(ne.cost, 0.5 * r.dot(&r), max_relative = 1e-12);
+            approx::assert_relative_eq!(problem.cost(&theta).unwrap(), ne.cost, max_relative = 1e-12);
+            let g = j.t().dot(&r);
+            let h = j.t().dot(&j);
+            for a in 0..theta.len() {
+                let gs = g.iter().fold(0.0f64, |m, v| m.max(v.abs()));
+                assert!(
+                    (ne.gradient[a] - g[a]).abs() <= 1e-9 * gs,
+                    "order {order}, gradient {a}"
+                );
+                for b in 0..theta.len() {
+                    let hs = (h[[a, a]] * h[[b, b]]).sqrt();
+                    assert!(
+                        (ne.gauss_newton[[a, b]] - h[[a, b]]).abs() <= 1e-9 * hs,
+                        "order {order}, JᵀJ[{a},{b}]: {} vs {}",
+                        ne.gauss_newton[[a, b]],
+                        h[[a, b]]
+                    );
+                }
+            }
         }
     }
 }

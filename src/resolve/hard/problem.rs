@@ -2,6 +2,7 @@
 //! thermodynamic parameters θ only (argmin [`Operator`] and [`Jacobian`]).
 
 use super::{FreeParameter, SpectraTemperature};
+use crate::resolve::lm::{GaussNewtonProblem, NormalEquations};
 use crate::speciation::{Derivatives, FormationLaw, SpeciationBatch, Start, ValidModel, speciate_all_into};
 use argmin::core::{Error as ArgminError, Jacobian, Operator};
 use ndarray::{Array1, Array2, ArrayView2};
@@ -44,7 +45,7 @@ pub(crate) struct Projection {
     pub singular_values: Array1<f64>,
 }
 
-impl VarproProblem<'_> {
+impl<'a> VarproProblem<'a> {
     /// Law parameter values per species with θ substituted.
     pub fn law_values(&self, theta: &Array1<f64>) -> Vec<Vec<f64>> {
         let mut values: Vec<Vec<f64>> = self
@@ -205,6 +206,40 @@ impl VarproProblem<'_> {
         let utg = p.u.t().dot(&self.reduced);
         &self.reduced - &p.u.dot(&utg)
     }
+
+    /// ‖Q_X G‖² without forming R: row by row, rᵢ = gᵢ − Σₐ Uᵢₐ (UᵀG)ₐ (subtract, then square:
+    /// no cancellation against ‖G‖²).
+    pub fn residual_sum_of_squares(&self, p: &Projection) -> f64 {
+        let utg = p.u.t().dot(&self.reduced);
+        let mut row = Array1::zeros(self.reduced.ncols());
+        let mut total = 0.0;
+        for (i, g) in self.reduced.rows().into_iter().enumerate() {
+            row.assign(&g);
+            for (a, w) in utg.rows().into_iter().enumerate() {
+                row.scaled_add(-p.u[[i, a]], &w);
+            }
+            total += row.dot(&row);
+        }
+        total
+    }
+
+    /// The same problem restricted to the samples `rows` (their rows of G: the Gram matrix of a
+    /// subset of samples is the corresponding block of D̃D̃ᵀ, so the restriction is exact).
+    pub fn restricted(&self, rows: &[usize]) -> VarproProblem<'a> {
+        let model = self.model;
+        VarproProblem {
+            model,
+            free: self.free,
+            temperatures_k: self.temperatures_k.select(ndarray::Axis(0), rows),
+            totals: self.totals.select(ndarray::Axis(0), rows),
+            sample_ids: rows.iter().map(|&i| self.sample_ids[i].clone()).collect(),
+            path_cm: self.path_cm.select(ndarray::Axis(0), rows),
+            absorbing: self.absorbing.clone(),
+            spectra_temperature: self.spectra_temperature,
+            reduced: self.reduced.select(ndarray::Axis(0), rows),
+            batch: Mutex::new(SpeciationBatch::new(model, rows.len(), Derivatives::Skip)),
+        }
+    }
 }
 
 /// Row-major flattening (residual order: sample by sample), without a copy when the matrix is
@@ -249,6 +284,59 @@ impl Jacobian for VarproProblem<'_> {
             jac.column_mut(q).assign(&flatten(col));
         }
         Ok(jac)
+    }
+}
+
+/// The normal equations without the residual vector or its Jacobian (the solver's form).
+///
+/// With R = Q_X G, P = X⁺ᵀ (its columns span range X, so Q_X P = 0), M = GGᵀ and the
+/// Golub–Pereyra columns J_p = −(A_p + B_p), A_p = Q_X ∂X_p X⁺ G (in range Q_X),
+/// B_p = P ∂X_pᵀ R (in range X):
+///
+/// ```text
+/// (Jᵀr)_p  = −⟨A_p, R⟩ = −Σ ∂X_p ∘ (R·GᵀP)
+/// (JᵀJ)_pq = ⟨A_p, A_q⟩ + ⟨B_p, B_q⟩
+///          = tr((Q_X ∂X_p)ᵀ(Q_X ∂X_q)·PᵀMP) + tr(PᵀP·(Rᵀ∂X_q)ᵀ(Rᵀ∂X_p))
+/// ```
+///
+/// (the cross terms vanish because Q_X P = 0), so no array larger than samples × rank is formed
+/// and the cost per evaluation is O(samples · rank · m · p).
+impl GaussNewtonProblem for VarproProblem<'_> {
+    fn cost(&self, theta: &Array1<f64>) -> Result<f64, ArgminError> {
+        let (c, _) = self.speciate(theta, false)?;
+        let p = self.project(self.design(c.view()))?;
+        let cost = 0.5 * self.residual_sum_of_squares(&p);
+        Ok(if cost.is_finite() { cost } else { f64::INFINITY })
+    }
+
+    fn normal_equations(&self, theta: &Array1<f64>) -> Result<NormalEquations, ArgminError> {
+        let (c, dc) = self.speciate(theta, true)?;
+        let proj = self.project(self.design(c.view()))?;
+        let r = self.residual_matrix(&proj);
+        let p_mat = proj.pinv.t(); // P = X⁺ᵀ, samples × m
+        let gtp = self.reduced.t().dot(&p_mat); // GᵀP, rank × m
+        let rgp = r.dot(&gtp); // R·GᵀP = Q_X M P, samples × m
+        let n_mat = gtp.t().dot(&gtp); // PᵀMP, m × m
+        let k_mat = proj.pinv.dot(&p_mat); // PᵀP, m × m
+        let dx: Vec<Array2<f64>> = dc.iter().map(|d| self.design(d.view())).collect();
+        let qdx: Vec<Array2<f64>> = dx.iter().map(|d| d - &proj.u.dot(&proj.u.t().dot(d))).collect();
+        let rtdx: Vec<Array2<f64>> = dx.iter().map(|d| r.t().dot(d)).collect();
+        let np = dx.len();
+        let gradient: Array1<f64> = dx.iter().map(|d| -(d * &rgp).sum()).collect();
+        let mut gauss_newton = Array2::zeros((np, np));
+        for a in 0..np {
+            for b in 0..=a {
+                let aa = (qdx[a].t().dot(&qdx[b]) * &n_mat).sum();
+                let bb = (rtdx[b].t().dot(&rtdx[a]) * &k_mat).sum();
+                gauss_newton[[a, b]] = aa + bb;
+                gauss_newton[[b, a]] = aa + bb;
+            }
+        }
+        Ok(NormalEquations {
+            cost: 0.5 * sum_sq(r.view()),
+            gradient,
+            gauss_newton,
+        })
     }
 }
 
