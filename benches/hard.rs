@@ -167,6 +167,19 @@ fn main() {
         black_box(set);
         return;
     }
+    if let Ok(spec) = std::env::var("ISOSBESTIC_REPEAT") {
+        // "<wavelengths>x<temperatures>x<fits>": fit the simulated set that many times (for
+        // profilers and CPU-time counters, which are steadier than wall time on a busy machine).
+        let n: Vec<usize> = spec.split('x').filter_map(|v| v.parse().ok()).collect();
+        if let [n_wl, n_t, count] = n[..] {
+            let set = simulated(n_wl, n_t);
+            let start = ml4_model("M", "L", 3.0, 0.0);
+            for _ in 0..count {
+                black_box(fit_once(&set, &start));
+            }
+        }
+        return;
+    }
     if let Ok(dir) = std::env::var("ISOSBESTIC_PEER_DATA") {
         let dir = Path::new(&dir);
         peer_compare(dir);
