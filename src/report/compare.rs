@@ -163,7 +163,7 @@ pub enum CompareError {
         /// The name looked up among the fitted spectra.
         model_species: String,
         /// The fitted species.
-        fitted: Vec<String>,
+        fitted: Box<[String]>,
     },
     /// A reference wavelength is outside the fitted range (with [`Uncomparable::Refuse`]).
     #[error("{location}: {wavelength_nm} nm ({species}) is outside the fitted range {min_nm}–{max_nm} nm")]
@@ -207,7 +207,7 @@ pub enum CompareError {
         /// The target named in the map.
         model_species: String,
         /// The fitted species.
-        fitted: Vec<String>,
+        fitted: Box<[String]>,
     },
     /// A species-map source names no row of the reference table.
     #[error("species map: no row of {reference} names species '{species}'")]
@@ -250,7 +250,7 @@ pub enum CompareError {
         /// The reference table.
         reference: Location,
         /// The fitted species.
-        fitted: Vec<String>,
+        fitted: Box<[String]>,
     },
 }
 
@@ -1257,7 +1257,7 @@ pub fn compare(
             return Err(CompareError::MapTargetNotFitted {
                 species: reference.clone(),
                 model_species: model.clone(),
-                fitted: fitted.species.clone(),
+                fitted: fitted.species.clone().into(),
             });
         }
         if !table.rows.iter().any(|r| r.species == *reference) {
@@ -1309,7 +1309,7 @@ pub fn compare(
                             location,
                             species: row.species.clone(),
                             model_species,
-                            fitted: fitted.species.clone(),
+                            fitted: fitted.species.clone().into(),
                         },
                         NotComparable::OutsideFittedRange { min_nm, max_nm } => {
                             CompareError::OutsideFittedRange {
@@ -1331,7 +1331,7 @@ pub fn compare(
     if passed + failed == 0 {
         return Err(CompareError::NothingComparable {
             reference: table.location(),
-            fitted: fitted.species.clone(),
+            fitted: fitted.species.clone().into(),
         });
     }
     Ok(Comparison {
