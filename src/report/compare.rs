@@ -1730,6 +1730,74 @@ mod tests {
     }
 
     #[test]
+    fn a_hard_fit_in_memory_is_compared_through_its_order_0_spectra() {
+        use crate::resolve::hard::{self, HardFitParams, SpectraTemperature};
+        use crate::simulate::{Band, Noise, PureSpectrum, SeriesPlan, SimulationPlan, simulate};
+        let band = |c: f64, w: f64, h: f64| Band {
+            centre_nm: c,
+            width_nm: w,
+            height: h,
+            shift_nm_per_k: 0.0,
+        };
+        let model = |lb1, dh1, lb2, dh2| {
+            crate::testing::metal_ligand_model("M", "X", &[(1, lb1, dh1), (2, lb2, dh2)], None)
+        };
+        let plan = SimulationPlan {
+            seed: 1,
+            first_nm: 350.0,
+            last_nm: 800.0,
+            step_nm: 3.0,
+            temperatures_c: (0..10).map(|k| 5.0 + 9.0 * f64::from(k)).collect(),
+            path_cm: 1.0,
+            preparation_temperature_c: 25.0,
+            thermal_expansion: false,
+            noise: Noise::None,
+            offset_sd_au: 0.0,
+            slope_sd_au_per_100nm: 0.0,
+            series: [0.3, 1.0, 3.0]
+                .iter()
+                .map(|&x| SeriesPlan {
+                    label: format!("X{x}"),
+                    totals_m: [("M".into(), 0.02), ("X".into(), x)].into(),
+                })
+                .collect(),
+            spectra: vec![
+                PureSpectrum {
+                    species: "M".into(),
+                    bands: vec![band(420.0, 30.0, 6.0)],
+                },
+                PureSpectrum {
+                    species: "MX".into(),
+                    bands: vec![band(450.0, 35.0, 18.0)],
+                },
+                PureSpectrum {
+                    species: "MX2".into(),
+                    bands: vec![band(480.0, 40.0, 40.0), band(650.0, 45.0, 55.0)],
+                },
+            ],
+        };
+        let sim = simulate(&model(0.4, 12e3, -0.2, 35e3), &plan).unwrap();
+        // temperature-dependent spectra: the comparison must use the order-0 block only
+        let params = HardFitParams {
+            spectra_temperature: SpectraTemperature::Linear { reference_k: 298.15 },
+            ..HardFitParams::default()
+        };
+        let fit = hard::fit(&sim.set, &model(1.0, 0.0, 1.0, 0.0), &params).unwrap();
+        assert_eq!(fit.spectra.ncols(), 6);
+        let fitted =
+            FittedSpectra::from_hard_fit(&fit, sim.set.wavelengths_nm().as_slice().unwrap()).unwrap();
+        assert_eq!(fitted.species, vec!["M", "MX", "MX2"]);
+        // 420 nm lies between the grid points 419 and 422 (t = 1/3); the truth is the simulated
+        // band 6·exp(−½((λ − 420)/30)²) (the simulation's input), interpolated the same way.
+        let truth = |l: f64| 6.0 * (-0.5 * ((l - 420.0) / 30.0_f64).powi(2)).exp();
+        let expected = truth(419.0) * 2.0 / 3.0 + truth(422.0) / 3.0;
+        let t = table("M,420,6.0,1%,,simulation input\nMX2,650,55,0.5,,simulation input\n");
+        let c = compare(&t, &fitted, &CompareParams::default()).unwrap();
+        assert_relative_eq!(c.rows[0].fitted_epsilon.unwrap(), expected, max_relative = 1e-6);
+        assert_eq!((c.passed, c.failed), (2, 0));
+    }
+
+    #[test]
     fn the_json_document_round_trips() {
         let c = compare(&table("M,413,5,10%,,x\n"), &fitted(), &CompareParams::default()).unwrap();
         let doc = crate::report::tables::to_json_document("comparison", &c);
