@@ -1797,6 +1797,35 @@ mod tests {
         assert_eq!((c.passed, c.failed), (2, 0));
     }
 
+    proptest::proptest! {
+        #[test]
+        fn interpolation_agrees_with_the_resampler_and_keeps_the_se_between_its_neighbours(
+            values in proptest::collection::vec((0.0f64..50.0, 0.01f64..2.0), 2..20),
+            fraction in 0.0f64..1.0,
+        ) {
+            let n = values.len();
+            let w: Vec<f64> = (0..n).map(|k| 400.0 + 2.5 * k as f64).collect();
+            let eps: Vec<f64> = values.iter().map(|v| v.0).collect();
+            let se: Vec<f64> = values.iter().map(|v| v.1).collect();
+            let s = FittedSpectra::new(
+                w.clone(),
+                vec!["A".into()],
+                Array2::from_shape_vec((n, 1), eps.clone()).unwrap(),
+                Array2::from_shape_vec((n, 1), se.clone()).unwrap(),
+            )
+            .unwrap();
+            let lambda = 400.0 + fraction * 2.5 * (n - 1) as f64;
+            let v = s.at("A", lambda).unwrap();
+            // an independent implementation: the preprocessing resampler's linear interpolation
+            let r = crate::preprocess::interpolate(&w, &eps, &[lambda], crate::preprocess::Interpolation::Linear)
+                .unwrap();
+            proptest::prop_assert!((v.epsilon - r[0]).abs() <= 1e-9 * (1.0 + r[0].abs()));
+            let k = (((lambda - 400.0) / 2.5).floor() as usize).min(n - 2);
+            let (lo, hi) = (se[k].min(se[k + 1]), se[k].max(se[k + 1]));
+            proptest::prop_assert!(v.standard_error >= lo - 1e-12 && v.standard_error <= hi + 1e-12);
+        }
+    }
+
     #[test]
     fn the_json_document_round_trips() {
         let c = compare(&table("M,413,5,10%,,x\n"), &fitted(), &CompareParams::default()).unwrap();
