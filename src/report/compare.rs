@@ -1009,6 +1009,7 @@ impl FittedSpectra {
 
 /// Maps reference species names to model species names (`[Ni(H2O)6]2+` → `Ni`).
 #[derive(Debug, Clone, Default, PartialEq, Eq, Serialize, Deserialize)]
+#[serde(transparent)]
 pub struct SpeciesMap {
     entries: BTreeMap<String, String>,
 }
@@ -1828,8 +1829,14 @@ mod tests {
 
     #[test]
     fn the_json_document_round_trips() {
-        let c = compare(&table("M,413,5,10%,,x\n"), &fitted(), &CompareParams::default()).unwrap();
+        let params = CompareParams::default().map(SpeciesMap::new().with("aqua", "M").unwrap());
+        let c = compare(&table("aqua,413,5,10%,,x\nZ,413,5,1,,y\n"), &fitted(), &params).unwrap();
         let doc = crate::report::tables::to_json_document("comparison", &c);
+        assert_eq!(doc["data"]["params"]["map"]["aqua"], "M");
+        assert_eq!(
+            doc["data"]["rows"][1]["not_comparable"]["kind"],
+            "species_not_fitted"
+        );
         let back: Comparison = crate::report::tables::from_json_document(doc, "comparison", None).unwrap();
         assert_eq!(back, c);
     }
