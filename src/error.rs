@@ -42,6 +42,9 @@ pub enum Error {
     /// A plot could not be drawn or written.
     #[error(transparent)]
     Plot(#[from] crate::report::plots::PlotError),
+    /// Fitted and reference absorptivities could not be compared.
+    #[error(transparent)]
+    Compare(#[from] crate::report::compare::CompareError),
     /// A simulation could not be run.
     #[error(transparent)]
     Simulation(#[from] crate::simulate::SimulationError),
