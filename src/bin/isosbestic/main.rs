@@ -4,6 +4,7 @@
 //! Exit codes: 0 success; 1 the run finished but did not converge or a check failed;
 //! 2 bad input or usage.
 
+mod batch;
 mod fit;
 mod input;
 mod inspect;
@@ -45,6 +46,8 @@ enum Command {
     Vanthoff(vanthoff::VanthoffArgs),
     /// Simulate a data set from a model and a plan (for planning experiments).
     Simulate(simulate::SimulateArgs),
+    /// Fit every data set under a folder in parallel: one report per set and a summary table.
+    Batch(batch::BatchArgs),
 }
 
 /// The current time as an RFC 3339 UTC string (for report headers).
@@ -94,6 +97,7 @@ fn main() -> ExitCode {
         Command::Resolve(args) => resolve::run(&args),
         Command::Vanthoff(args) => vanthoff::run(&args),
         Command::Simulate(args) => simulate::run(&args),
+        Command::Batch(args) => batch::run(&args),
     };
     match outcome {
         Ok(code) => code,
