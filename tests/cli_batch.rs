@@ -253,12 +253,14 @@ fn batch_redoes_an_interrupted_set_and_keeps_outputs_it_did_not_make() {
     let sim = tmp.path().join("sim");
     simulate_into(&sim);
     let root = tmp.path().join("runs");
-    for set in ["one", "two"] {
+    for set in ["one", "two", "three"] {
         std::fs::create_dir_all(root.join(set)).unwrap();
         for f in ["spectra.csv", "samples.csv"] {
             std::fs::copy(sim.join(f), root.join(set).join(f)).unwrap();
         }
     }
+    // "three": a fit allowed a single iteration cannot converge
+    std::fs::write(root.join("three/fit.toml"), "[fit.solver]\nmax_iterations = 1\n").unwrap();
     let model = demo("model.toml");
     let out = tmp.path().join("results");
     // "one": an interrupted batch run (state "running", a partial output)
@@ -303,10 +305,11 @@ fn batch_redoes_an_interrupted_set_and_keeps_outputs_it_did_not_make() {
         .arg("--model")
         .arg(&model)
         .args(["--force", "--threads", "1"]));
-    assert_eq!(code, 0, "{stdout}\n{stderr}");
+    assert_eq!(code, 1, "{stdout}\n{stderr}");
     let rows = summary(&out);
     assert_eq!(rows["one"]["status"], "ok"); // --force redoes complete sets too
     assert_eq!(rows["two"]["status"], "ok");
+    assert_eq!(rows["three"]["status"], "failed");
 }
 
 #[test]

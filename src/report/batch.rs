@@ -23,7 +23,7 @@
 //!
 //! ## Outputs and resuming
 //! Each set writes into `<out>/<its path relative to the root>/` the files a single fit writes
-//! ([`FIT_OUTPUTS`](super::fit::FIT_OUTPUTS), [`FIT_PAGE_OUTPUTS`](super::fit::FIT_PAGE_OUTPUTS))
+//! ([`FIT_OUTPUTS`], [`FIT_PAGE_OUTPUTS`])
 //! and a state file [`STATE_FILE`] (`batch_state.json`, a [`SetState`]). The state file is
 //! written atomically before the fit (state `running`) and again after it: `complete` (written
 //! last, after every output) only when the fit converged, otherwise `failed`. It holds the
@@ -731,8 +731,20 @@ impl Shared {
 fn guarded(set: &DataSet, name: &str, params: &BatchParams, shared: &Shared) -> SetOutcome {
     let started = Instant::now();
     let out_dir = params.out.join(&set.relative);
-    let result = catch_unwind(AssertUnwindSafe(|| process(set, &out_dir, params, shared)));
-    let (status, message, result) = match result {
+    let (status, message, result) = catching_panics(name, || process(set, &out_dir, params, shared));
+    SetOutcome {
+        data_set: name.to_string(),
+        out_dir,
+        status,
+        message,
+        result,
+        seconds: started.elapsed().as_secs_f64(),
+    }
+}
+
+/// Runs `work`, turning its error or a panic inside it into a failure naming the set `name`.
+fn catching_panics(name: &str, work: impl FnOnce() -> Processed) -> (SetStatus, String, Option<SetResult>) {
+    match catch_unwind(AssertUnwindSafe(work)) {
         Ok(Ok((status, result))) => (status, String::new(), result),
         Ok(Err((e, result))) => (SetStatus::Failed, e, result),
         Err(payload) => {
@@ -747,14 +759,6 @@ fn guarded(set: &DataSet, name: &str, params: &BatchParams, shared: &Shared) -> 
                 None,
             )
         }
-    };
-    SetOutcome {
-        data_set: name.to_string(),
-        out_dir,
-        status,
-        message,
-        result,
-        seconds: started.elapsed().as_secs_f64(),
     }
 }
 
@@ -1084,6 +1088,26 @@ mod tests {
         };
         let e = plan(&set, root.path(), &shared).unwrap_err().to_string();
         assert!(e.contains("fit.toml") && e.contains("modle"), "{e}");
+    }
+
+    #[test]
+    fn a_panic_inside_a_set_becomes_a_failure_naming_the_set() {
+        let (status, message, result) = catching_panics("lab/x", || {
+            let cells: Vec<f64> = Vec::new();
+            let i = cells.len() + 3;
+            if i > 2 {
+                panic!("index {i} out of range");
+            }
+            Ok((SetStatus::Ok, None))
+        });
+        assert_eq!(status, SetStatus::Failed);
+        assert!(
+            message.contains("lab/x") && message.contains("index 3 out of range"),
+            "{message}"
+        );
+        assert_eq!(result, None);
+        let (status, message, _) = catching_panics("y", || Err(("bad file".into(), None)));
+        assert_eq!((status, message.as_str()), (SetStatus::Failed, "bad file"));
     }
 
     fn complete_state(dir: &Path, inputs: Vec<InputFile>) -> SetState {
