@@ -633,15 +633,43 @@ impl fmt::Display for BatchReport {
 ///
 /// # Examples
 /// ```
-/// use isosbestic::report::batch::{run_batch, BatchParams, SetStatus};
+/// use isosbestic::report::batch::{run_batch, BatchEvent, BatchParams, SetStatus};
+/// use std::sync::atomic::{AtomicUsize, Ordering};
+/// let demo = std::path::Path::new(env!("CARGO_MANIFEST_DIR")).join("data/demo");
 /// let root = tempfile::tempdir()?;
 /// let out = tempfile::tempdir()?;
-/// std::fs::create_dir(root.path().join("empty-run"))?;
-/// std::fs::write(root.path().join("empty-run/spectra.csv"), "wavelength_nm,a\n")?;
-/// let report = run_batch(&BatchParams::new(root.path(), out.path()), &|_| {})?;
-/// assert_eq!(report.outcomes[0].status, SetStatus::Failed);
-/// assert!(report.outcomes[0].message.contains("samples.csv"));
+/// // "good": the demo data with its settings; "half": a samples table is missing
+/// for set in ["good", "half"] {
+///     std::fs::create_dir(root.path().join(set))?;
+///     std::fs::copy(demo.join("spectra.csv"), root.path().join(set).join("spectra.csv"))?;
+/// }
+/// std::fs::copy(demo.join("samples.csv"), root.path().join("good/samples.csv"))?;
+/// std::fs::write(
+///     root.path().join("good/fit.toml"),
+///     "[fit]\nbaseline = \"offset\"\nconcentrations = { thermal_expansion = { kind = \"water\" } }\n",
+/// )?;
+/// let params = BatchParams {
+///     shared_model: Some(demo.join("model.toml")),
+///     threads: Some(2),
+///     ..BatchParams::new(root.path(), out.path())
+/// };
+/// let finished = AtomicUsize::new(0);
+/// let progress = |e: BatchEvent<'_>| {
+///     if let BatchEvent::Finished { .. } = e {
+///         finished.fetch_add(1, Ordering::SeqCst);
+///     }
+/// };
+/// let report = run_batch(&params, &progress)?;
+/// assert_eq!(finished.load(Ordering::SeqCst), 2);
+/// assert_eq!(report.outcomes[0].data_set, "good");
+/// assert_eq!(report.outcomes[0].status, SetStatus::Ok);
+/// assert!(out.path().join("good/report.html").is_file());
+/// assert_eq!(report.outcomes[1].status, SetStatus::Failed);
+/// assert!(report.outcomes[1].message.contains("samples.csv"));
 /// assert!(out.path().join("batch_summary.csv").is_file());
+/// // a second run skips the complete set
+/// let again = run_batch(&params, &|_| {})?;
+/// assert_eq!(again.count(SetStatus::Skipped), 1);
 /// # Ok::<(), Box<dyn std::error::Error>>(())
 /// ```
 pub fn run_batch(params: &BatchParams, progress: &(dyn Fn(BatchEvent<'_>) + Sync)) -> Result<BatchReport> {
