@@ -217,8 +217,16 @@ fn batch_finishes_the_good_sets_names_the_corrupt_one_and_resumes() {
         assert!(rows[set]["NiBr_se_dH"].parse::<f64>().unwrap() > 0.0);
     }
 
-    // rerun: complete sets are skipped (their numbers kept), the corrupt one is tried again
-    let (code, stdout, stderr) = run(&mut batch());
+    // rerun, from another working folder with the folders spelled relatively: complete sets
+    // are skipped (their numbers kept), the corrupt one is tried again
+    let (code, stdout, stderr) = run(bin().current_dir(tmp.path()).args([
+        "batch",
+        "runs",
+        "--out",
+        "results",
+        "--settings",
+        "settings.toml",
+    ]));
     assert_eq!(code, 1, "{stdout}\n{stderr}");
     let rows2 = summary(&out);
     assert_eq!(rows2["lab1/good-a"]["status"], "skipped");

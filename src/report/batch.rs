@@ -30,7 +30,7 @@
 //! SHA-256 checksums of every input (data files, model, `fit.toml` or shared settings).
 //!
 //! A rerun skips a set whose state is `complete`, whose inputs still have the recorded
-//! checksums and whose outputs are all present ([`SetState::is_complete_for`]); every other
+//! checksums (compared by content, not path) and whose outputs are all present ([`SetState::is_complete_for`]); every other
 //! set (new, interrupted, failed, or with a changed input) is done again, replacing the outputs
 //! of the earlier batch run. Outputs in a set's folder that carry no batch state file (e.g. from
 //! a single `fit`) are never replaced without [`Redo::All`].
@@ -455,9 +455,15 @@ pub struct SetState {
 }
 
 impl SetState {
-    /// True when this state says the set is complete for exactly these `inputs` (same paths and
-    /// checksums, in any order) and every recorded output is still in `dir` with its recorded
-    /// size.
+    /// True when this state says the set is complete for exactly these `inputs` and every
+    /// recorded output is still in `dir` with its recorded size.
+    ///
+    /// Inputs are compared by content, in order (spectra, samples, model, then `fit.toml` or the
+    /// shared settings): the same number of files with the same checksums and sizes. Paths are
+    /// not compared, so a rerun from another working folder, or with the root spelled
+    /// differently (relative, absolute, on another machine's mount point), still skips complete
+    /// sets; the order keeps each file's role (a spectra table swapped with the samples table
+    /// does not match).
     ///
     /// # Examples
     /// ```
@@ -475,17 +481,20 @@ impl SetState {
     ///     message: None,
     /// };
     /// assert!(state.is_complete_for(&[input.clone()], dir.path()));
+    /// let moved = InputFile { path: "/elsewhere/s.csv".into(), ..input.clone() };
+    /// assert!(state.is_complete_for(&[moved], dir.path()));
     /// let changed = InputFile { sha256: "cd".into(), ..input };
     /// assert!(!state.is_complete_for(&[changed], dir.path()));
     /// # Ok::<(), Box<dyn std::error::Error>>(())
     /// ```
     pub fn is_complete_for(&self, inputs: &[InputFile], dir: &Path) -> bool {
-        let key = |i: &InputFile| (i.path.clone(), i.sha256.clone(), i.bytes);
-        let recorded: HashSet<_> = self.inputs.iter().map(key).collect();
-        let current: HashSet<_> = inputs.iter().map(key).collect();
         self.progress == SetProgress::Complete
-            && recorded == current
             && self.inputs.len() == inputs.len()
+            && self
+                .inputs
+                .iter()
+                .zip(inputs)
+                .all(|(a, b)| a.sha256 == b.sha256 && a.bytes == b.bytes)
             && self.outputs.iter().all(|o| {
                 std::fs::metadata(dir.join(&o.name)).is_ok_and(|m| m.is_file() && m.len() == o.bytes)
             })
@@ -1158,11 +1167,12 @@ mod tests {
         let dir = tempfile::tempdir().unwrap();
         let d = dir.path();
         touch(&d.join("in/a.csv"));
-        touch(&d.join("in/b.csv"));
+        fs::write(d.join("in/b.csv"), "y").unwrap();
         let a = checksum(&d.join("in/a.csv")).unwrap();
         let b = checksum(&d.join("in/b.csv")).unwrap();
         let state = complete_state(d, vec![a.clone(), b.clone()]);
-        assert!(state.is_complete_for(&[b.clone(), a.clone()], d)); // order does not matter
+        assert!(state.is_complete_for(&[a.clone(), b.clone()], d));
+        assert!(!state.is_complete_for(&[b.clone(), a.clone()], d)); // roles swapped
         assert!(!state.is_complete_for(std::slice::from_ref(&a), d)); // an input less
         fs::write(d.join("in/b.csv"), "changed").unwrap();
         let b2 = checksum(&d.join("in/b.csv")).unwrap();

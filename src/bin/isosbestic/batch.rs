@@ -93,7 +93,7 @@ pub fn run(args: &BatchArgs) -> isosbestic::Result<ExitCode> {
         BatchEvent::Finished { outcome, .. } => {
             bar.suspend(|| {
                 if outcome.status == SetStatus::Failed {
-                    eprintln!("isosbestic: data set failed: {}", line(outcome));
+                    eprintln!("isosbestic: {}", line(outcome));
                 } else if !args.quiet {
                     println!("{}", line(outcome));
                 }
