@@ -48,6 +48,9 @@ pub enum Error {
     /// A simulation could not be run.
     #[error(transparent)]
     Simulation(#[from] crate::simulate::SimulationError),
+    /// A batch of data sets could not be run as a whole (a failing data set is a result).
+    #[error(transparent)]
+    Batch(#[from] crate::report::batch::BatchError),
     /// An equilibrium model file is invalid.
     #[error("{path}: {source}")]
     InModel {

@@ -2,6 +2,7 @@
 //! they write files atomically (temporary file, then rename).
 
 pub mod atomic;
+pub mod batch;
 pub mod compare;
 pub mod fit;
 pub mod html;

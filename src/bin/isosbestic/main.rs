@@ -4,6 +4,7 @@
 //! Exit codes: 0 success; 1 the run finished but did not converge or a check failed;
 //! 2 bad input or usage.
 
+mod batch;
 mod compare;
 mod fit;
 mod input;
@@ -48,6 +49,8 @@ enum Command {
     Simulate(simulate::SimulateArgs),
     /// Compare fitted molar absorptivities with a reference table (pass/fail per row).
     Compare(compare::CompareArgs),
+    /// Fit every data set under a folder in parallel: one report per set and a summary table.
+    Batch(batch::BatchArgs),
 }
 
 /// The current time as an RFC 3339 UTC string (for report headers).
@@ -98,6 +101,7 @@ fn main() -> ExitCode {
         Command::Vanthoff(args) => vanthoff::run(&args),
         Command::Simulate(args) => simulate::run(&args),
         Command::Compare(args) => compare::run(&args),
+        Command::Batch(args) => batch::run(&args),
     };
     match outcome {
         Ok(code) => code,
