@@ -11,7 +11,7 @@
 //! | measured spectra coloured by temperature | [`measured_spectra`] | wavelength / nm, absorbance |
 //! | pure spectra ε(λ) with ±2σ bands | [`pure_spectra`] | wavelength / nm, ε / (L mol⁻¹ cm⁻¹) |
 //! | concentration profiles per series | [`concentration_profiles`] | temperature / °C, concentration / (mol/L) |
-//! | van 't Hoff plot with 95 % band | [`vant_hoff`] | 10³ K / T, ln K |
+//! | van 't Hoff plot with 95 % band | [`vant_hoff`], [`vant_hoff_bands`] | 10³ K / T, ln K |
 //! | residual map | [`residual_map`] | wavelength / nm, sample |
 //! | singular values | [`singular_values`] | factor number, log₁₀ singular value |
 //! | evolving factors | [`evolving_factors`] | sample (temperature order), log₁₀ singular value |
@@ -49,6 +49,8 @@ use thiserror::Error;
 
 use crate::data::{SampleRole, SpectraSet};
 use crate::factor::FactorSummary;
+use crate::report::fit::VantHoffTable;
+use crate::resolve::classic::ClassicMethod;
 use crate::resolve::hard::HardFit;
 use crate::thermo::VanThoffFit;
 
@@ -1090,6 +1092,38 @@ pub fn vant_hoff(
     points: &[LnKPoints<'_>],
     palette: &Palette,
 ) -> Result<String, PlotError> {
+    vant_hoff_bands(
+        title,
+        band.map(std::slice::from_ref).unwrap_or_default(),
+        points,
+        palette,
+    )
+}
+
+/// As [`vant_hoff`] with any number of fitted curves (e.g. one per species of a model with
+/// stepwise complexes), each with its band in its own colour; the point sets follow in the
+/// next colours.
+///
+/// # Errors
+/// As [`vant_hoff`].
+///
+/// # Examples
+/// ```
+/// use isosbestic::report::plots::{vant_hoff_bands, LnKBand, Palette};
+/// let t = [290.0, 330.0];
+/// let b1 = LnKBand { label: "ln β ML", level: 0.95, temperatures_k: &t, ln_k: &[3.0, 2.0], lower: &[2.9, 1.9], upper: &[3.1, 2.1] };
+/// let b2 = LnKBand { label: "ln β ML2", ln_k: &[5.0, 3.5], lower: &[4.8, 3.3], upper: &[5.2, 3.7], ..b1.clone() };
+/// let svg = vant_hoff_bands("van 't Hoff plot", &[b1, b2], &[], &Palette::default())?;
+/// assert_eq!(svg.matches("<polygon").count(), 2);
+/// assert!(svg.contains("ln β ML2"));
+/// # Ok::<(), isosbestic::report::plots::PlotError>(())
+/// ```
+pub fn vant_hoff_bands(
+    title: &str,
+    bands: &[LnKBand<'_>],
+    points: &[LnKPoints<'_>],
+    palette: &Palette,
+) -> Result<String, PlotError> {
     const PLOT: &str = "van 't Hoff";
     let check_t = |what: &'static str, t: &[f64]| -> Result<(), PlotError> {
         check_1d(PLOT, what, t)?;
@@ -1103,7 +1137,7 @@ pub fn vant_hoff(
             None => Ok(()),
         }
     };
-    if band.is_none() && points.is_empty() {
+    if bands.is_empty() && points.is_empty() {
         return Err(PlotError::Empty {
             plot: PLOT,
             what: "band and points",
@@ -1111,7 +1145,7 @@ pub fn vant_hoff(
     }
     let mut xs_all = Vec::new();
     let mut ys_all = Vec::new();
-    if let Some(b) = band {
+    for b in bands {
         check_t("band temperatures", b.temperatures_k)?;
         let n = b.temperatures_k.len();
         for (what, v) in [
@@ -1133,7 +1167,7 @@ pub fn vant_hoff(
         ys_all.extend_from_slice(p.ln_k);
     }
     let x = padded_range(xs_all.into_iter(), 0.04);
-    let entries = points.len() + 2 * usize::from(band.is_some());
+    let entries = points.len() + 2 * bands.len();
     let y = with_headroom(padded_range(ys_all.into_iter(), 0.06), entries, palette);
     let (xs, ys) = (x.end - x.start, y.end - y.start);
     render(PLOT, palette, |root| {
@@ -1154,8 +1188,13 @@ pub fn vant_hoff(
             &|v| tick_text(*v, ys),
             palette,
         )?;
-        if let Some(b) = band {
-            let colour = palette.text;
+        for (k, b) in bands.iter().enumerate() {
+            // a single curve is drawn in the text colour over a shaded band, several in their own colours
+            let colour = if bands.len() == 1 {
+                palette.text
+            } else {
+                palette.category(k)
+            };
             let mut order: Vec<usize> = (0..b.temperatures_k.len()).collect();
             order.sort_by(|&i, &j| b.temperatures_k[j].total_cmp(&b.temperatures_k[i]));
             let mut poly: Vec<(f64, f64)> = order
@@ -1169,14 +1208,19 @@ pub fn vant_hoff(
                     .map(|&i| (1e3 / b.temperatures_k[i], b.lower[i])),
             );
             let shade = palette
-                .category(0)
+                .category(k)
                 .to_plotters()
                 .mix(palette.band_opacity)
                 .filled();
+            let band_label = if bands.len() == 1 {
+                format!("{:.0} % confidence band", 100.0 * b.level)
+            } else {
+                format!("{:.0} % band, {}", 100.0 * b.level, b.label)
+            };
             chart
                 .draw_series(std::iter::once(Polygon::new(poly, shade)))
                 .map_err(draw_err(PLOT))?
-                .label(format!("{:.0} % confidence band", 100.0 * b.level))
+                .label(band_label)
                 .legend(move |(x, y)| Rectangle::new([(x, y - 5), (x + 18, y + 5)], shade));
             let style = line_style(colour, palette);
             chart
@@ -1188,6 +1232,7 @@ pub fn vant_hoff(
                 .label(b.label)
                 .legend(move |(x, y)| PathElement::new(vec![(x, y), (x + 18, y)], style));
         }
+        let first_point_colour = bands.len().max(1);
         for (k, p) in points.iter().enumerate() {
             let pts: Vec<(f64, f64)> = p
                 .temperatures_k
@@ -1200,7 +1245,7 @@ pub fn vant_hoff(
                 &mut chart,
                 &pts,
                 Marker::nth(k),
-                palette.category(k + 1),
+                palette.category(k + first_point_colour),
                 Some(p.label),
                 palette,
             )?;
@@ -1255,6 +1300,61 @@ pub fn vant_hoff_of(
     }];
     sets.extend(extra.iter().cloned());
     vant_hoff("van 't Hoff plot", Some(&b), &sets, palette)
+}
+
+/// [`vant_hoff_bands`] of a global fit's van 't Hoff table: the fitted ln β(T) of every formed
+/// species with its 95 % band, and the classic direct and mass-balance ln K points when the
+/// table holds them.
+///
+/// # Errors
+/// As [`vant_hoff_bands`]; [`PlotError::Empty`] when the table holds no curve and no point.
+pub fn vant_hoff_of_table(table: &VantHoffTable, palette: &Palette) -> Result<String, PlotError> {
+    let labels: Vec<String> = table
+        .curves
+        .iter()
+        .map(|c| format!("ln β {}, global fit", c.species))
+        .collect();
+    let bands: Vec<LnKBand<'_>> = table
+        .curves
+        .iter()
+        .zip(&labels)
+        .map(|(c, label)| LnKBand {
+            label,
+            level: c.level,
+            temperatures_k: &c.temperatures_k,
+            ln_k: &c.ln_k,
+            lower: &c.lower,
+            upper: &c.upper,
+        })
+        .collect();
+    let (td, ld) = table.classic_points(ClassicMethod::Direct);
+    let (tm, lm) = table.classic_points(ClassicMethod::MassBalance);
+    let (direct_label, mb_label) = match &table.classic {
+        Some(c) => (
+            format!(
+                "classic direct ({:.0} nm, {:.0} nm)",
+                c.free_wavelength_nm, c.complex_wavelength_nm
+            ),
+            format!("classic mass balance ({:.0} nm)", c.complex_wavelength_nm),
+        ),
+        None => (String::new(), String::new()),
+    };
+    let mut points = Vec::new();
+    if !td.is_empty() {
+        points.push(LnKPoints {
+            label: &direct_label,
+            temperatures_k: &td,
+            ln_k: &ld,
+        });
+    }
+    if !tm.is_empty() {
+        points.push(LnKPoints {
+            label: &mb_label,
+            temperatures_k: &tm,
+            ln_k: &lm,
+        });
+    }
+    vant_hoff_bands("van 't Hoff plot", &bands, &points, palette)
 }
 
 // ---------------------------------------------------------------------------------------------
@@ -1513,9 +1613,20 @@ pub fn singular_values_of(summary: &FactorSummary, palette: &Palette) -> Result<
     )
 }
 
+/// Where [`evolving_factors`] draws entries at the numerical zero level (windows with fewer
+/// samples than factors): one decade below the lowest value that stands more than a decade
+/// above that level, so they do not stretch the axis far below the noise. With no such gap,
+/// the lowest value itself.
+fn zero_level_floor(values: impl Iterator<Item = f64> + Clone) -> f64 {
+    let lowest = values.clone().fold(f64::INFINITY, f64::min);
+    let real = values.filter(|&v| v > lowest + 1.0).fold(f64::INFINITY, f64::min);
+    if real.is_finite() { real - 1.0 } else { lowest }
+}
+
 /// Evolving factor analysis: log₁₀ singular values of growing windows (forward, solid) and
 /// shrinking windows (backward, dashed) against the sample position in temperature order; the
-/// x tick labels give the temperature in °C.
+/// x tick labels give the temperature in °C. Entries at the numerical zero level (a window with
+/// fewer samples than factors) are drawn one decade below the lowest real singular value.
 ///
 /// `forward` and `backward` are positions × factors; `temperatures_c` gives the temperature at
 /// each position (already in the analysis order).
@@ -1549,6 +1660,9 @@ pub fn evolving_factors(
     check_2d(PLOT, "forward", forward)?;
     check_2d(PLOT, "backward", backward)?;
     let n = temperatures_c.len();
+    let floor = zero_level_floor(forward.iter().chain(backward.iter()).copied());
+    let forward = forward.mapv(|v| v.max(floor));
+    let backward = backward.mapv(|v| v.max(floor));
     let x = -0.3..(n as f64 - 0.7);
     let y = with_headroom(
         padded_range(forward.iter().chain(backward.iter()).copied(), 0.06),
@@ -1667,6 +1781,15 @@ mod tests {
         assert_eq!(b[159].end, 1000);
         assert!(b.windows(2).all(|w| w[0].end == w[1].start));
         assert_eq!(bins(5, 160).len(), 5);
+    }
+
+    #[test]
+    fn zero_level_entries_are_lifted_to_a_decade_below_the_lowest_real_value() {
+        let v = [1.0, -2.5, -15.0, -15.0, 0.3];
+        approx::assert_abs_diff_eq!(zero_level_floor(v.iter().copied()), -3.5);
+        // no gap: nothing to lift
+        let w = [1.0, 0.5, 0.2];
+        approx::assert_abs_diff_eq!(zero_level_floor(w.iter().copied()), 0.2);
     }
 
     #[test]

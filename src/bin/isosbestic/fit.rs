@@ -117,6 +117,7 @@ fn config_from(args: &FitArgs) -> isosbestic::Result<FitRunConfig> {
                 model,
                 preprocess: Default::default(),
                 fit: Default::default(),
+                candidates: Vec::new(),
             }
         }
     };
