@@ -12,7 +12,12 @@ use sha2::{Digest, Sha256};
 use std::fmt;
 use std::path::{Path, PathBuf};
 
+mod candidates;
 mod vant_hoff;
+pub use candidates::{
+    CandidateResult, FailedCandidate, FittedCandidate, ModelComparison, candidate_names, compare_candidates,
+    is_nested_in,
+};
 pub use vant_hoff::{
     CURVE_POINTS, ClassicComparison, ClassicThermo, LnKCurve, VANT_HOFF_LEVEL, VantHoffPoint, VantHoffTable,
     vant_hoff_table,
@@ -33,7 +38,7 @@ pub struct FitRunConfig {
     #[serde(default)]
     pub fit: HardFitParams,
     /// Further candidate model files fitted to the same data and ranked against `model`
-    /// by AIC, BIC and F-tests of nested pairs.
+    /// (see [`ModelComparison`]).
     #[serde(default, skip_serializing_if = "Vec::is_empty")]
     pub candidates: Vec<PathBuf>,
 }
@@ -245,6 +250,9 @@ pub struct FitReport {
     /// two-wavelength estimates beside them.
     #[serde(default)]
     pub vant_hoff: VantHoffTable,
+    /// The ranking of the candidate models, when the run has candidates.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub model_comparison: Option<ModelComparison>,
 }
 
 /// Runs a fit from a configuration: read, preprocess, fit, diagnose.
@@ -266,6 +274,7 @@ pub fn run_fit(config: &FitRunConfig) -> Result<(FitReport, SpectraSet)> {
     let fit = hard::fit(&set, &model, &config.fit)?;
     let diagnostics = diagnose(&set, &fit, &config.fit);
     let vant_hoff = vant_hoff_table(&fit, &model, &set);
+    let model_comparison = fit_candidates(config, &set, &model, &fit, &mut inputs)?;
     let report = FitReport {
         software: format!("isosbestic {}", env!("CARGO_PKG_VERSION")),
         inputs,
@@ -278,8 +287,62 @@ pub fn run_fit(config: &FitRunConfig) -> Result<(FitReport, SpectraSet)> {
         fit,
         diagnostics,
         vant_hoff,
+        model_comparison,
     };
     Ok((report, set))
+}
+
+/// Fits every candidate model of `config` to the same preprocessed data with the same settings
+/// and ranks them together with the main model (`None` without candidates). A candidate file
+/// that cannot be read is an error; a candidate whose fit cannot be run is listed as failed.
+fn fit_candidates(
+    config: &FitRunConfig,
+    set: &SpectraSet,
+    model: &ValidModel,
+    fit: &HardFit,
+    inputs: &mut Vec<InputFile>,
+) -> Result<Option<ModelComparison>> {
+    if config.candidates.is_empty() {
+        return Ok(None);
+    }
+    let paths: Vec<PathBuf> = std::iter::once(config.model.clone())
+        .chain(config.candidates.iter().cloned())
+        .collect();
+    let names = candidate_names(&paths);
+    let mut models = Vec::with_capacity(config.candidates.len());
+    for path in &config.candidates {
+        inputs.push(checksum(path)?);
+        models.push(read_model(path)?);
+    }
+    let results: Vec<std::result::Result<HardFit, String>> = models
+        .iter()
+        .map(|m| hard::fit(set, m, &config.fit).map_err(|e| e.to_string()))
+        .collect();
+    let mut fitted = vec![FittedCandidate {
+        name: &names[0],
+        path: &paths[0],
+        primary: true,
+        model,
+        fit,
+    }];
+    let mut failed = Vec::new();
+    for (i, r) in results.iter().enumerate() {
+        match r {
+            Ok(f) => fitted.push(FittedCandidate {
+                name: &names[i + 1],
+                path: &paths[i + 1],
+                primary: false,
+                model: &models[i],
+                fit: f,
+            }),
+            Err(reason) => failed.push(FailedCandidate {
+                name: names[i + 1].clone(),
+                model: paths[i + 1].clone(),
+                reason: reason.clone(),
+            }),
+        }
+    }
+    Ok(Some(compare_candidates(&fitted, failed)))
 }
 
 /// Diagnostics of a finished fit.
@@ -371,6 +434,10 @@ pub const FIT_OUTPUTS: [&str; 6] = [
     "vant_hoff_points.csv",
 ];
 
+/// The table [`write_fit_outputs`] writes besides [`FIT_OUTPUTS`] when the run ranked
+/// candidate models.
+pub const MODEL_COMPARISON_CSV: &str = "model_comparison.csv";
+
 /// Writes the report and its tables into `dir` (created if needed), atomically.
 ///
 /// Refuses to overwrite any input file, and refuses to overwrite earlier outputs unless
@@ -383,7 +450,10 @@ pub fn write_fit_outputs(dir: &Path, report: &FitReport, force: bool) -> Result<
         path: dir.to_path_buf(),
         source,
     })?;
-    let targets: Vec<PathBuf> = FIT_OUTPUTS.iter().map(|n| dir.join(n)).collect();
+    let mut targets: Vec<PathBuf> = FIT_OUTPUTS.iter().map(|n| dir.join(n)).collect();
+    if report.model_comparison.is_some() {
+        targets.push(dir.join(MODEL_COMPARISON_CSV));
+    }
     guard_outputs(&targets, &report.inputs, force)?;
     write_json(&targets[0], "fit-report", report)?;
     let fit = &report.fit;
@@ -474,6 +544,9 @@ pub fn write_fit_outputs(dir: &Path, report: &FitReport, force: bool) -> Result<
     }
     spectra.write_csv(&targets[4])?;
     report.vant_hoff.write_csv(&targets[5])?;
+    if let (Some(c), Some(t)) = (&report.model_comparison, targets.get(FIT_OUTPUTS.len())) {
+        c.write_csv(t)?;
+    }
     Ok(targets)
 }
 
@@ -555,7 +628,7 @@ pub fn write_fit_page(
     for d in &report.diagnostics {
         fit_section = fit_section.with_note(format!("Note: {d}"));
     }
-    let sections = [
+    let mut sections = vec![
         Section::new("Measured spectra")
             .with_figure("Measured spectra coloured by temperature", measured)
             .with_figure(
@@ -577,6 +650,9 @@ pub fn write_fit_page(
             vant_hoff,
         ),
     ];
+    if let Some(c) = &report.model_comparison {
+        sections.push(comparison_section(c));
+    }
     let page = render_report("isosbestic global fit", &generation, &sections);
     crate::report::atomic::write_atomic(&targets[0], page.as_bytes()).map_err(|source| Error::Output {
         path: targets[0].clone(),
@@ -643,6 +719,45 @@ fn vant_hoff_section(table: &VantHoffTable) -> crate::report::html::Section {
     }
     for n in &table.notes {
         section = section.with_note(format!("Note: {n}"));
+    }
+    section
+}
+
+/// The page section ranking the candidate models.
+fn comparison_section(c: &ModelComparison) -> crate::report::html::Section {
+    use crate::report::html::{Section, SummaryRow};
+    let mut section = Section::new("Model comparison").with_note(format!(
+        "Candidates fitted to the same {} data values, ranked by AIC = n ln(RSS/n) + 2k (Akaike 1974); \
+         BIC = n ln(RSS/n) + k ln n (Schwarz 1978). Rows give ΔAIC; k counts the thermodynamic \
+         and the linear (spectra, baseline) parameters.",
+        c.n_data
+    ));
+    for r in &c.candidates {
+        section.summary.push(SummaryRow::new(
+            format!(
+                "{}. {}{} (k = {}, BIC {:.1})",
+                r.rank,
+                r.name,
+                if r.primary { ", main model" } else { "" },
+                r.n_parameters,
+                r.bic
+            ),
+            format!("{:.2}", r.delta_aic),
+            None,
+            "ΔAIC",
+        ));
+    }
+    for t in &c.nested_tests {
+        section = section.with_note(format!(
+            "F-test of {} within {}: F = {:.4}, p = {}.",
+            t.simpler,
+            t.richer,
+            t.f,
+            candidates::p_text(t.p_value)
+        ));
+    }
+    for f in &c.failed {
+        section = section.with_note(format!("{} could not be fitted: {}", f.name, f.reason));
     }
     section
 }
@@ -727,6 +842,10 @@ impl fmt::Display for FitReport {
             )?;
         }
         write_vant_hoff_comparison(f, &self.vant_hoff)?;
+        if let Some(c) = &self.model_comparison {
+            writeln!(f)?;
+            write!(f, "{c}")?;
+        }
         if !self.diagnostics.is_empty() {
             writeln!(f)?;
             for d in &self.diagnostics {
