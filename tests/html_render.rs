@@ -4,6 +4,8 @@
 //! The browser test needs `/usr/bin/chromium` (Debian package `chromium`). Without it the test
 //! fails, unless `ISOSBESTIC_SKIP_BROWSER=1` is set, in which case it notes the skip and passes.
 
+mod support;
+
 use std::path::Path;
 use std::process::Command;
 
@@ -252,76 +254,12 @@ fn the_report_renders_in_headless_chromium() {
 /// with every figure, the van 't Hoff plot and the evolving factors among them.
 #[test]
 fn a_fit_page_renders_with_its_van_t_hoff_and_evolving_factor_figures() {
-    use isosbestic::report::fit::{FIT_PAGE_OUTPUTS, FitRunConfig, run_fit, write_fit_page};
-    use isosbestic::simulate::{Band, Noise, PureSpectrum, SeriesPlan, SimulationPlan, simulate};
+    use isosbestic::report::fit::{FIT_PAGE_OUTPUTS, run_fit, write_fit_page};
     if !browser_available() {
         return;
     }
-    let model_text = r#"
-        components = [{ name = "M", absorbs = true }, { name = "X", absorbs = false }]
-        [[species]]
-        name = "MX"
-        stoichiometry = { M = 1, X = 1 }
-        absorbs = true
-        law = { kind = "van_t_hoff", log_beta_ref = { value = 0.4 }, dh_ref = { value = 12000.0 } }
-    "#;
-    let model = isosbestic::speciation::EquilibriumModel::from_toml_str(model_text)
-        .unwrap()
-        .check()
-        .unwrap();
-    let band = |c: f64, h: f64| Band {
-        centre_nm: c,
-        width_nm: 30.0,
-        height: h,
-        shift_nm_per_k: 0.0,
-    };
-    let plan = SimulationPlan {
-        seed: 5,
-        first_nm: 380.0,
-        last_nm: 700.0,
-        step_nm: 5.0,
-        temperatures_c: vec![10.0, 30.0, 50.0, 70.0],
-        path_cm: 1.0,
-        preparation_temperature_c: 25.0,
-        thermal_expansion: false,
-        noise: Noise::Absorbance { sd_au: 1e-4 },
-        offset_sd_au: 0.0,
-        slope_sd_au_per_100nm: 0.0,
-        series: [0.3, 3.0]
-            .iter()
-            .map(|&x| SeriesPlan {
-                label: format!("X{x}"),
-                totals_m: [("M".into(), 0.02), ("X".into(), x)].into(),
-            })
-            .collect(),
-        spectra: vec![
-            PureSpectrum {
-                species: "M".into(),
-                bands: vec![band(420.0, 6.0)],
-            },
-            PureSpectrum {
-                species: "MX".into(),
-                bands: vec![band(560.0, 20.0)],
-            },
-        ],
-    };
-    let sim = simulate(&model, &plan).unwrap();
     let dir = tempfile::tempdir().unwrap();
-    let (spectra, samples, model_path) = (
-        dir.path().join("spectra.csv"),
-        dir.path().join("samples.csv"),
-        dir.path().join("model.toml"),
-    );
-    isosbestic::report::tables::write_spectra_table(&sim.set, &spectra).unwrap();
-    isosbestic::report::tables::write_samples_table(&sim.set, &samples).unwrap();
-    std::fs::write(&model_path, model_text).unwrap();
-    let config = FitRunConfig {
-        data: isosbestic::data::DataFiles::csv(spectra, samples),
-        model: model_path,
-        preprocess: Default::default(),
-        fit: Default::default(),
-        candidates: Vec::new(),
-    };
+    let config = support::write_inputs(dir.path(), support::ONE_COMPLEX, &["M", "MX"]);
     let (report, set) = run_fit(&config).unwrap();
     let out = dir.path().join("out");
     std::fs::create_dir_all(&out).unwrap();

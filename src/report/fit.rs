@@ -675,29 +675,16 @@ fn vant_hoff_section(table: &VantHoffTable) -> crate::report::html::Section {
                 None => SummaryRow::new(label, "not available", None, unit),
             });
         };
-        for (name, value) in [
-            ("global fit", Some(c.global_dh_j_mol)),
-            ("classic direct", c.direct.dh_j_mol),
-            ("classic mass balance", c.mass_balance.dh_j_mol),
-        ] {
-            row(
-                format!("ΔH° of {}, {name}", c.complex_species),
-                value,
-                1e3,
-                "kJ/mol",
-            );
-        }
-        for (name, value) in [
-            ("global fit", Some(c.global_ds_j_k_mol)),
-            ("classic direct", c.direct.ds_j_k_mol),
-            ("classic mass balance", c.mass_balance.ds_j_k_mol),
-        ] {
-            row(
-                format!("ΔS° of {}, {name}", c.complex_species),
-                value,
-                1.0,
-                "J/(K mol)",
-            );
+        for (quantity, scale, unit) in [("ΔH°", 1e3, "kJ/mol"), ("ΔS°", 1.0, "J/(K mol)")] {
+            for (name, dh, ds) in c.estimates() {
+                let value = if quantity == "ΔH°" { dh } else { ds };
+                row(
+                    format!("{quantity} of {}, {name}", c.complex_species),
+                    value,
+                    scale,
+                    unit,
+                );
+            }
         }
         section = section.with_note(format!(
             "Classic estimates read {} at {:.1} nm and {} at {:.1} nm (each species' band where the other \
@@ -869,15 +856,7 @@ fn write_vant_hoff_comparison(f: &mut fmt::Formatter<'_>, table: &VantHoffTable)
             c.complex_species,
             c.complex_wavelength_nm
         )?;
-        for (name, dh, ds) in [
-            ("global fit", Some(c.global_dh_j_mol), Some(c.global_ds_j_k_mol)),
-            ("classic direct", c.direct.dh_j_mol, c.direct.ds_j_k_mol),
-            (
-                "classic mass balance",
-                c.mass_balance.dh_j_mol,
-                c.mass_balance.ds_j_k_mol,
-            ),
-        ] {
+        for (name, dh, ds) in c.estimates() {
             match (dh, ds) {
                 (Some([h, sh]), Some([s, ss])) => writeln!(
                     f,

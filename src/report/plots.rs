@@ -449,7 +449,8 @@ fn tick_text(v: f64, span: f64) -> String {
 type Chart<'a, 'b> = ChartContext<'a, SVGBackend<'b>, Cartesian2d<RangedCoordf64, RangedCoordf64>>;
 type Root<'b> = DrawingArea<SVGBackend<'b>, plotters::coord::Shift>;
 
-/// Axis description for one chart.
+/// Axis description of one chart: ranges, titles, label areas, tick text and whether a legend
+/// is drawn. Ticks are numbers ([`tick_text`] over the axis span) unless a formatter is given.
 struct Axes<'s> {
     x: Range<f64>,
     y: Range<f64>,
@@ -457,44 +458,76 @@ struct Axes<'s> {
     y_desc: &'s str,
     right_margin: u32,
     y_label_area: u32,
+    x_ticks: Option<&'s dyn Fn(&f64) -> String>,
+    y_ticks: Option<&'s dyn Fn(&f64) -> String>,
+    legend: bool,
 }
 
-/// Draws the common frame (background, title, mesh, axis descriptions) and returns the chart.
-fn frame<'a, 'b>(
+impl<'s> Axes<'s> {
+    /// Numeric ticks, a 64-pixel y label area, no extra right margin, a legend.
+    fn new(x: Range<f64>, y: Range<f64>, x_desc: &'s str, y_desc: &'s str) -> Self {
+        Self {
+            x,
+            y,
+            x_desc,
+            y_desc,
+            right_margin: 0,
+            y_label_area: 64,
+            x_ticks: None,
+            y_ticks: None,
+            legend: true,
+        }
+    }
+}
+
+/// Draws one chart as an SVG document of the palette's size: the frame (background, title,
+/// mesh, axis titles and ticks), then `draw` on the chart (with the root area, for colour bars
+/// outside the plotting area), then the legend of the labelled series.
+fn chart_svg(
     plot: &'static str,
-    root: &'a Root<'b>,
     title: &str,
     axes: &Axes<'_>,
-    x_fmt: &dyn Fn(&f64) -> String,
-    y_fmt: &dyn Fn(&f64) -> String,
     palette: &Palette,
-) -> Result<Chart<'a, 'b>, PlotError> {
-    root.fill(&palette.background.to_plotters())
-        .map_err(draw_err(plot))?;
-    let mut chart = ChartBuilder::on(root)
-        .caption(title, palette.font(palette.title_size))
-        .margin(14)
-        .margin_right(14 + axes.right_margin)
-        .x_label_area_size(52)
-        .y_label_area_size(axes.y_label_area)
-        .build_cartesian_2d(axes.x.clone(), axes.y.clone())
-        .map_err(draw_err(plot))?;
-    chart
-        .configure_mesh()
-        .x_desc(axes.x_desc)
-        .y_desc(axes.y_desc)
-        .axis_desc_style(palette.font(palette.label_size))
-        .label_style(palette.font(palette.tick_size))
-        .bold_line_style(palette.grid.to_plotters())
-        .light_line_style(palette.grid_light.to_plotters())
-        .axis_style(palette.axis.to_plotters())
-        .x_labels(8)
-        .y_labels(8)
-        .x_label_formatter(x_fmt)
-        .y_label_formatter(y_fmt)
-        .draw()
-        .map_err(draw_err(plot))?;
-    Ok(chart)
+    draw: impl for<'a, 'b> FnOnce(&'a Root<'b>, &mut Chart<'a, 'b>) -> Result<(), PlotError>,
+) -> Result<String, PlotError> {
+    let (xs, ys) = (axes.x.end - axes.x.start, axes.y.end - axes.y.start);
+    let x_numbers = move |v: &f64| tick_text(*v, xs);
+    let y_numbers = move |v: &f64| tick_text(*v, ys);
+    let mut buf = String::new();
+    {
+        let root = SVGBackend::with_string(&mut buf, palette.size).into_drawing_area();
+        root.fill(&palette.background.to_plotters())
+            .map_err(draw_err(plot))?;
+        let mut chart = ChartBuilder::on(&root)
+            .caption(title, palette.font(palette.title_size))
+            .margin(14)
+            .margin_right(14 + axes.right_margin)
+            .x_label_area_size(52)
+            .y_label_area_size(axes.y_label_area)
+            .build_cartesian_2d(axes.x.clone(), axes.y.clone())
+            .map_err(draw_err(plot))?;
+        chart
+            .configure_mesh()
+            .x_desc(axes.x_desc)
+            .y_desc(axes.y_desc)
+            .axis_desc_style(palette.font(palette.label_size))
+            .label_style(palette.font(palette.tick_size))
+            .bold_line_style(palette.grid.to_plotters())
+            .light_line_style(palette.grid_light.to_plotters())
+            .axis_style(palette.axis.to_plotters())
+            .x_labels(8)
+            .y_labels(8)
+            .x_label_formatter(axes.x_ticks.unwrap_or(&x_numbers))
+            .y_label_formatter(axes.y_ticks.unwrap_or(&y_numbers))
+            .draw()
+            .map_err(draw_err(plot))?;
+        draw(&root, &mut chart)?;
+        if axes.legend {
+            draw_legend(plot, &mut chart, palette)?;
+        }
+        root.present().map_err(draw_err(plot))?;
+    }
+    Ok(buf)
 }
 
 fn draw_legend<'a, 'b: 'a>(
@@ -512,19 +545,40 @@ fn draw_legend<'a, 'b: 'a>(
         .map_err(draw_err(plot))
 }
 
-/// Renders `draw` into an SVG string of the palette's size.
-fn render(
+/// Legend key of a line series: a short stroke.
+fn line_key(style: ShapeStyle) -> impl Fn((i32, i32)) -> PathElement<(i32, i32)> {
+    move |(x, y)| PathElement::new(vec![(x, y), (x + 18, y)], style)
+}
+
+/// Legend key of a shaded band: a small filled rectangle.
+fn swatch_key(shade: ShapeStyle) -> impl Fn((i32, i32)) -> Rectangle<(i32, i32)> {
+    move |(x, y)| Rectangle::new([(x, y - 5), (x + 18, y + 5)], shade)
+}
+
+/// A shaded band between `lower` and `upper` over `x` (in drawing order): the upper edge out,
+/// the lower edge back; with a legend swatch when `label` is given.
+fn draw_band(
     plot: &'static str,
-    palette: &Palette,
-    draw: impl FnOnce(&Root<'_>) -> Result<(), PlotError>,
-) -> Result<String, PlotError> {
-    let mut buf = String::new();
-    {
-        let root = SVGBackend::with_string(&mut buf, palette.size).into_drawing_area();
-        draw(&root)?;
-        root.present().map_err(draw_err(plot))?;
+    chart: &mut Chart<'_, '_>,
+    x: &[f64],
+    lower: &[f64],
+    upper: &[f64],
+    shade: ShapeStyle,
+    label: Option<&str>,
+) -> Result<(), PlotError> {
+    let outline: Vec<(f64, f64)> = x
+        .iter()
+        .zip(upper)
+        .map(|(&x, &u)| (x, u))
+        .chain(x.iter().zip(lower).rev().map(|(&x, &l)| (x, l)))
+        .collect();
+    let ann = chart
+        .draw_series(std::iter::once(Polygon::new(outline, shade)))
+        .map_err(draw_err(plot))?;
+    if let Some(l) = label {
+        ann.label(l).legend(swatch_key(shade));
     }
-    Ok(buf)
+    Ok(())
 }
 
 fn line_style(c: Rgb, palette: &Palette) -> ShapeStyle {
@@ -653,25 +707,12 @@ pub fn measured_spectra(
     };
     let x = padded_range(wavelengths_nm.iter().copied(), 0.0);
     let y = with_headroom(padded_range(absorbance.iter().copied(), 0.05), 3, palette);
-    let (xs, ys) = (x.end - x.start, y.end - y.start);
-    render(PLOT, palette, |root| {
-        let axes = Axes {
-            x,
-            y,
-            x_desc: "wavelength / nm",
-            y_desc: "absorbance",
-            right_margin: 0,
-            y_label_area: 70,
-        };
-        let mut chart = frame(
-            PLOT,
-            root,
-            title,
-            &axes,
-            &|v| tick_text(*v, xs),
-            &|v| tick_text(*v, ys),
-            palette,
-        )?;
+    let axes = Axes {
+        y_label_area: 70,
+        legend: false,
+        ..Axes::new(x, y, "wavelength / nm", "absorbance")
+    };
+    chart_svg(PLOT, title, &axes, palette, |root, chart| {
         // hottest last so that warm curves sit on top; ties keep input order
         let mut order: Vec<usize> = (0..temperatures_c.len()).collect();
         order.sort_by(|&a, &b| temperatures_c[a].total_cmp(&temperatures_c[b]));
@@ -686,7 +727,7 @@ pub fn measured_spectra(
         colour_bar_horizontal(
             PLOT,
             root,
-            &chart,
+            chart,
             "temperature / °C",
             (format!("{t_lo:.1}"), format!("{t_hi:.1}")),
             |t| palette.temperature_colour(t),
@@ -760,42 +801,19 @@ pub fn pure_spectra(
     let x = padded_range(wavelengths_nm.iter().copied(), 0.0);
     let entries = species.len() + usize::from(standard_errors.is_some());
     let y = with_headroom(padded_range(extremes.into_iter(), 0.05), entries, palette);
-    let (xs, ys) = (x.end - x.start, y.end - y.start);
-    render(PLOT, palette, |root| {
-        let axes = Axes {
-            x,
-            y,
-            x_desc: "wavelength / nm",
-            y_desc: "molar absorptivity ε / (L mol⁻¹ cm⁻¹)",
-            right_margin: 0,
-            y_label_area: 76,
-        };
-        let mut chart = frame(
-            PLOT,
-            root,
-            title,
-            &axes,
-            &|v| tick_text(*v, xs),
-            &|v| tick_text(*v, ys),
-            palette,
-        )?;
+    let axes = Axes {
+        y_label_area: 76,
+        ..Axes::new(x, y, "wavelength / nm", "molar absorptivity ε / (L mol⁻¹ cm⁻¹)")
+    };
+    chart_svg(PLOT, title, &axes, palette, |_, chart| {
         for (k, name) in species.iter().enumerate() {
             let colour = palette.category(k);
             if standard_errors.is_some() {
-                let mut poly: Vec<(f64, f64)> = (0..wavelengths_nm.len())
-                    .map(|i| (wavelengths_nm[i], spectra[[i, k]] + band(i, k)))
-                    .collect();
-                poly.extend(
-                    (0..wavelengths_nm.len())
-                        .rev()
-                        .map(|i| (wavelengths_nm[i], spectra[[i, k]] - band(i, k))),
-                );
-                chart
-                    .draw_series(std::iter::once(Polygon::new(
-                        poly,
-                        colour.to_plotters().mix(palette.band_opacity).filled(),
-                    )))
-                    .map_err(draw_err(PLOT))?;
+                let n = wavelengths_nm.len();
+                let lower: Vec<f64> = (0..n).map(|i| spectra[[i, k]] - band(i, k)).collect();
+                let upper: Vec<f64> = (0..n).map(|i| spectra[[i, k]] + band(i, k)).collect();
+                let shade = colour.to_plotters().mix(palette.band_opacity).filled();
+                draw_band(PLOT, chart, wavelengths_nm, &lower, &upper, shade, None)?;
             }
             let column = spectra.column(k);
             let pts = wavelengths_nm.iter().copied().zip(column.iter().copied());
@@ -804,7 +822,7 @@ pub fn pure_spectra(
                 .draw_series(LineSeries::new(pts, style))
                 .map_err(draw_err(PLOT))?
                 .label(*name)
-                .legend(move |(x, y)| PathElement::new(vec![(x, y), (x + 18, y)], style));
+                .legend(line_key(style));
         }
         if standard_errors.is_some() {
             let shade = palette.text.to_plotters().mix(palette.band_opacity).filled();
@@ -812,9 +830,9 @@ pub fn pure_spectra(
                 .draw_series(std::iter::empty::<Polygon<(f64, f64)>>())
                 .map_err(draw_err(PLOT))?
                 .label("band: ±2 standard errors")
-                .legend(move |(x, y)| Rectangle::new([(x, y - 5), (x + 18, y + 5)], shade));
+                .legend(swatch_key(shade));
         }
-        draw_legend(PLOT, &mut chart, palette)
+        Ok(())
     })
 }
 
@@ -928,25 +946,11 @@ pub fn concentration_profiles(
         species.len() + series.len(),
         palette,
     );
-    let (xs, ys) = (x.end - x.start, y.end - y.start);
-    render(PLOT, palette, |root| {
-        let axes = Axes {
-            x,
-            y,
-            x_desc: "temperature / °C",
-            y_desc: "concentration / (mol/L)",
-            right_margin: 0,
-            y_label_area: 80,
-        };
-        let mut chart = frame(
-            PLOT,
-            root,
-            title,
-            &axes,
-            &|v| tick_text(*v, xs),
-            &|v| tick_text(*v, ys),
-            palette,
-        )?;
+    let axes = Axes {
+        y_label_area: 80,
+        ..Axes::new(x, y, "temperature / °C", "concentration / (mol/L)")
+    };
+    chart_svg(PLOT, title, &axes, palette, |_, chart| {
         for (si, s) in series.iter().enumerate() {
             let mut order: Vec<usize> = (0..s.temperatures_c.len()).collect();
             order.sort_by(|&a, &b| s.temperatures_c[a].total_cmp(&s.temperatures_c[b]));
@@ -961,16 +965,15 @@ pub fn concentration_profiles(
                     .map_err(draw_err(PLOT))?;
                 if si == 0 {
                     let style = line_style(colour, palette);
-                    ann.label(*name)
-                        .legend(move |(x, y)| PathElement::new(vec![(x, y), (x + 18, y)], style));
+                    ann.label(*name).legend(line_key(style));
                 }
-                draw_markers(PLOT, &mut chart, &pts, Marker::nth(si), colour, None, palette)?;
+                draw_markers(PLOT, chart, &pts, Marker::nth(si), colour, None, palette)?;
             }
             // legend entry for the series' marker, in a neutral colour
             let label = format!("series {}", s.label);
             draw_markers(
                 PLOT,
-                &mut chart,
+                chart,
                 &[],
                 Marker::nth(si),
                 palette.axis,
@@ -978,7 +981,7 @@ pub fn concentration_profiles(
                 palette,
             )?;
         }
-        draw_legend(PLOT, &mut chart, palette)
+        Ok(())
     })
 }
 
@@ -1169,25 +1172,8 @@ pub fn vant_hoff_bands(
     let x = padded_range(xs_all.into_iter(), 0.04);
     let entries = points.len() + 2 * bands.len();
     let y = with_headroom(padded_range(ys_all.into_iter(), 0.06), entries, palette);
-    let (xs, ys) = (x.end - x.start, y.end - y.start);
-    render(PLOT, palette, |root| {
-        let axes = Axes {
-            x,
-            y,
-            x_desc: "10³ K / T  (inverse temperature)",
-            y_desc: "ln K",
-            right_margin: 0,
-            y_label_area: 64,
-        };
-        let mut chart = frame(
-            PLOT,
-            root,
-            title,
-            &axes,
-            &|v| tick_text(*v, xs),
-            &|v| tick_text(*v, ys),
-            palette,
-        )?;
+    let axes = Axes::new(x, y, "10³ K / T  (inverse temperature)", "ln K");
+    chart_svg(PLOT, title, &axes, palette, |_, chart| {
         for (k, b) in bands.iter().enumerate() {
             // a single curve is drawn in the text colour over a shaded band, several in their own colours
             let colour = if bands.len() == 1 {
@@ -1197,16 +1183,9 @@ pub fn vant_hoff_bands(
             };
             let mut order: Vec<usize> = (0..b.temperatures_k.len()).collect();
             order.sort_by(|&i, &j| b.temperatures_k[j].total_cmp(&b.temperatures_k[i]));
-            let mut poly: Vec<(f64, f64)> = order
-                .iter()
-                .map(|&i| (1e3 / b.temperatures_k[i], b.upper[i]))
-                .collect();
-            poly.extend(
-                order
-                    .iter()
-                    .rev()
-                    .map(|&i| (1e3 / b.temperatures_k[i], b.lower[i])),
-            );
+            let inverse_t: Vec<f64> = order.iter().map(|&i| 1e3 / b.temperatures_k[i]).collect();
+            let lower: Vec<f64> = order.iter().map(|&i| b.lower[i]).collect();
+            let upper: Vec<f64> = order.iter().map(|&i| b.upper[i]).collect();
             let shade = palette
                 .category(k)
                 .to_plotters()
@@ -1217,11 +1196,7 @@ pub fn vant_hoff_bands(
             } else {
                 format!("{:.0} % band, {}", 100.0 * b.level, b.label)
             };
-            chart
-                .draw_series(std::iter::once(Polygon::new(poly, shade)))
-                .map_err(draw_err(PLOT))?
-                .label(band_label)
-                .legend(move |(x, y)| Rectangle::new([(x, y - 5), (x + 18, y + 5)], shade));
+            draw_band(PLOT, chart, &inverse_t, &lower, &upper, shade, Some(&band_label))?;
             let style = line_style(colour, palette);
             chart
                 .draw_series(LineSeries::new(
@@ -1230,7 +1205,7 @@ pub fn vant_hoff_bands(
                 ))
                 .map_err(draw_err(PLOT))?
                 .label(b.label)
-                .legend(move |(x, y)| PathElement::new(vec![(x, y), (x + 18, y)], style));
+                .legend(line_key(style));
         }
         let first_point_colour = bands.len().max(1);
         for (k, p) in points.iter().enumerate() {
@@ -1242,7 +1217,7 @@ pub fn vant_hoff_bands(
                 .collect();
             draw_markers(
                 PLOT,
-                &mut chart,
+                chart,
                 &pts,
                 Marker::nth(k),
                 palette.category(k + first_point_colour),
@@ -1250,7 +1225,7 @@ pub fn vant_hoff_bands(
                 palette,
             )?;
         }
-        draw_legend(PLOT, &mut chart, palette)
+        Ok(())
     })
 }
 
@@ -1427,7 +1402,6 @@ pub fn residual_map(
     let scale = if limit > 0.0 { limit } else { 1.0 };
     let x = padded_range([edge(0), edge(nw)].into_iter(), 0.0);
     let y = -0.5..(rows.len() as f64 - 0.5);
-    let xs = x.end - x.start;
     let row_label = |v: &f64| -> String {
         let r = v.round();
         if (v - r).abs() > 1e-6 || r < 0.0 || r as usize >= rows.len() {
@@ -1440,24 +1414,14 @@ pub fn residual_map(
             name.to_string()
         }
     };
-    render(PLOT, palette, |root| {
-        let axes = Axes {
-            x,
-            y,
-            x_desc: "wavelength / nm",
-            y_desc: "sample",
-            right_margin: 96,
-            y_label_area: 96,
-        };
-        let mut chart = frame(
-            PLOT,
-            root,
-            title,
-            &axes,
-            &|v| tick_text(*v, xs),
-            &row_label,
-            palette,
-        )?;
+    let axes = Axes {
+        right_margin: 96,
+        y_label_area: 96,
+        y_ticks: Some(&row_label),
+        legend: false,
+        ..Axes::new(x, y, "wavelength / nm", "sample")
+    };
+    chart_svg(PLOT, title, &axes, palette, |root, chart| {
         let rects = cells.indexed_iter().map(|((r, c), &v)| {
             let x0 = edge(cols[c].start);
             let x1 = edge(cols[c].end);
@@ -1548,7 +1512,6 @@ pub fn singular_values(
         .collect();
     let x = 0.5..(values.len() as f64 + 0.5);
     let y = with_headroom(padded_range(pts.iter().map(|p| p.1), 0.08), 2, palette);
-    let ys = y.end - y.start;
     let int_tick = |v: &f64| {
         if (v - v.round()).abs() < 1e-9 && *v >= 1.0 {
             format!("{}", v.round() as i64)
@@ -1556,31 +1519,18 @@ pub fn singular_values(
             String::new()
         }
     };
-    render(PLOT, palette, |root| {
-        let axes = Axes {
-            x,
-            y: y.clone(),
-            x_desc: "factor number",
-            y_desc: "log₁₀ (singular value / AU)",
-            right_margin: 0,
-            y_label_area: 64,
-        };
-        let mut chart = frame(
-            PLOT,
-            root,
-            title,
-            &axes,
-            &int_tick,
-            &|v| tick_text(*v, ys),
-            palette,
-        )?;
+    let axes = Axes {
+        x_ticks: Some(&int_tick),
+        ..Axes::new(x, y, "factor number", "log₁₀ (singular value / AU)")
+    };
+    chart_svg(PLOT, title, &axes, palette, |_, chart| {
         let colour = palette.category(0);
         chart
             .draw_series(LineSeries::new(pts.iter().copied(), line_style(colour, palette)))
             .map_err(draw_err(PLOT))?;
         draw_markers(
             PLOT,
-            &mut chart,
+            chart,
             &pts,
             Marker::Circle,
             colour,
@@ -1591,12 +1541,17 @@ pub fn singular_values(
             let xr = r as f64 + 0.5;
             let style = palette.category(1).to_plotters().stroke_width(2);
             chart
-                .draw_series(DashedLineSeries::new([(xr, y.start), (xr, y.end)], 6, 4, style))
+                .draw_series(DashedLineSeries::new(
+                    [(xr, axes.y.start), (xr, axes.y.end)],
+                    6,
+                    4,
+                    style,
+                ))
                 .map_err(draw_err(PLOT))?
                 .label(format!("rank {r}"))
-                .legend(move |(x, y)| PathElement::new(vec![(x, y), (x + 18, y)], style));
+                .legend(line_key(style));
         }
-        draw_legend(PLOT, &mut chart, palette)
+        Ok(())
     })
 }
 
@@ -1669,7 +1624,6 @@ pub fn evolving_factors(
         2 * forward.ncols(),
         palette,
     );
-    let ys = y.end - y.start;
     let t_tick = |v: &f64| {
         let r = v.round();
         if (v - r).abs() < 1e-9 && r >= 0.0 && (r as usize) < n {
@@ -1678,16 +1632,16 @@ pub fn evolving_factors(
             String::new()
         }
     };
-    render(PLOT, palette, |root| {
-        let axes = Axes {
+    let axes = Axes {
+        x_ticks: Some(&t_tick),
+        ..Axes::new(
             x,
             y,
-            x_desc: "temperature / °C (samples in order of temperature)",
-            y_desc: "log₁₀ (singular value / AU)",
-            right_margin: 0,
-            y_label_area: 64,
-        };
-        let mut chart = frame(PLOT, root, title, &axes, &t_tick, &|v| tick_text(*v, ys), palette)?;
+            "temperature / °C (samples in order of temperature)",
+            "log₁₀ (singular value / AU)",
+        )
+    };
+    chart_svg(PLOT, title, &axes, palette, |_, chart| {
         for k in 0..forward.ncols() {
             let colour = palette.category(k);
             let style = line_style(colour, palette);
@@ -1698,7 +1652,7 @@ pub fn evolving_factors(
                 ))
                 .map_err(draw_err(PLOT))?
                 .label(format!("forward, factor {}", k + 1))
-                .legend(move |(x, y)| PathElement::new(vec![(x, y), (x + 18, y)], style));
+                .legend(line_key(style));
             let pts: Vec<(f64, f64)> = backward
                 .column(k)
                 .iter()
@@ -1715,7 +1669,7 @@ pub fn evolving_factors(
                         + PathElement::new(vec![(11, 0), (18, 0)], style)
                 });
         }
-        draw_legend(PLOT, &mut chart, palette)
+        Ok(())
     })
 }
 

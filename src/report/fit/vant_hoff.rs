@@ -425,6 +425,27 @@ fn classic_comparison(
     ))
 }
 
+impl ClassicComparison {
+    /// (name, ΔH° ± se in J/mol, ΔS° ± se in J K⁻¹ mol⁻¹) of the global fit, the classic direct
+    /// and the classic mass-balance estimate, in that order.
+    #[allow(clippy::type_complexity)]
+    pub fn estimates(&self) -> [(&'static str, Option<[f64; 2]>, Option<[f64; 2]>); 3] {
+        [
+            (
+                "global fit",
+                Some(self.global_dh_j_mol),
+                Some(self.global_ds_j_k_mol),
+            ),
+            ("classic direct", self.direct.dh_j_mol, self.direct.ds_j_k_mol),
+            (
+                "classic mass balance",
+                self.mass_balance.dh_j_mol,
+                self.mass_balance.ds_j_k_mol,
+            ),
+        ]
+    }
+}
+
 impl VantHoffTable {
     /// Writes `vant_hoff_points.csv`: sample, series, species, T, 1/T, ln K of the global fit
     /// with its 95 % band, and the classic direct and mass-balance ln K (empty when absent).
