@@ -434,16 +434,17 @@ fn tick_text(v: f64, span: f64) -> String {
         return s.replace("e-", "e−").replace('-', "−");
     }
     let decimals = (3 - a.log10().floor() as i32).clamp(0, 6) as usize;
-    let mut s = format!("{v:.decimals$}");
+    fixed_trimmed(v, decimals).replace('-', "−")
+}
+
+/// `v` with `decimals` decimals, trailing zeros (and a bare decimal point) removed.
+pub(crate) fn fixed_trimmed(v: f64, decimals: usize) -> String {
+    let s = format!("{v:.decimals$}");
     if s.contains('.') {
-        while s.ends_with('0') {
-            s.pop();
-        }
-        if s.ends_with('.') {
-            s.pop();
-        }
+        s.trim_end_matches('0').trim_end_matches('.').to_string()
+    } else {
+        s
     }
-    s.replace('-', "−")
 }
 
 type Chart<'a, 'b> = ChartContext<'a, SVGBackend<'b>, Cartesian2d<RangedCoordf64, RangedCoordf64>>;
