@@ -36,7 +36,7 @@ fn a_one_complex_fit_shows_the_classic_estimates_beside_the_global_curve() {
     for p in &table.points {
         let lt = truth(p.temperature_k);
         approx::assert_abs_diff_eq!(p.ln_k_global, lt, epsilon = 1e-5);
-        assert!(p.ln_k_lower <= p.ln_k_global && p.ln_k_global <= p.ln_k_upper);
+        assert!(p.ln_k_lower.unwrap() <= p.ln_k_global && p.ln_k_global <= p.ln_k_upper.unwrap());
         approx::assert_relative_eq!(p.inverse_temperature_per_k, 1.0 / p.temperature_k);
         // noise-free, bands apart: both classic estimates close to the truth
         approx::assert_abs_diff_eq!(p.ln_k_classic_direct.unwrap(), lt, epsilon = 0.02);

@@ -1285,10 +1285,14 @@ pub fn vant_hoff_of(
 /// # Errors
 /// As [`vant_hoff_bands`]; [`PlotError::Empty`] when the table holds no curve and no point.
 pub fn vant_hoff_of_table(table: &VantHoffTable, palette: &Palette) -> Result<String, PlotError> {
+    // a curve without a band (undefined standard errors) gets a zero-width band and says so
     let labels: Vec<String> = table
         .curves
         .iter()
-        .map(|c| format!("ln β {}, global fit", c.species))
+        .map(|c| match (&c.lower, &c.upper) {
+            (Some(_), Some(_)) => format!("ln β {}, global fit", c.species),
+            _ => format!("ln β {}, global fit (no band)", c.species),
+        })
         .collect();
     let bands: Vec<LnKBand<'_>> = table
         .curves
@@ -1299,8 +1303,8 @@ pub fn vant_hoff_of_table(table: &VantHoffTable, palette: &Palette) -> Result<St
             level: c.level,
             temperatures_k: &c.temperatures_k,
             ln_k: &c.ln_k,
-            lower: &c.lower,
-            upper: &c.upper,
+            lower: c.lower.as_deref().unwrap_or(&c.ln_k),
+            upper: c.upper.as_deref().unwrap_or(&c.ln_k),
         })
         .collect();
     let (td, ld) = table.classic_points(ClassicMethod::Direct);

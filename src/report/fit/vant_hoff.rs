@@ -60,10 +60,11 @@ pub struct VantHoffPoint {
     pub inverse_temperature_per_k: f64,
     /// ln β of the global fit at T (natural log; β in the molar standard state).
     pub ln_k_global: f64,
-    /// Lower end of its 95 % band.
-    pub ln_k_lower: f64,
+    /// Lower end of its 95 % band (None when the standard error is undefined, e.g. a parameter
+    /// of the species ended on its bound).
+    pub ln_k_lower: Option<f64>,
     /// Upper end of its 95 % band.
-    pub ln_k_upper: f64,
+    pub ln_k_upper: Option<f64>,
     /// ln K of the classic direct estimate at this sample (None: not made, or no K here).
     pub ln_k_classic_direct: Option<f64>,
     /// ln K of the classic mass-balance estimate at this sample.
@@ -81,10 +82,10 @@ pub struct LnKCurve {
     pub temperatures_k: Vec<f64>,
     /// ln β.
     pub ln_k: Vec<f64>,
-    /// Lower band limit.
-    pub lower: Vec<f64>,
+    /// Lower band limit (None when the standard error is undefined anywhere on the grid).
+    pub lower: Option<Vec<f64>>,
     /// Upper band limit.
-    pub upper: Vec<f64>,
+    pub upper: Option<Vec<f64>>,
 }
 
 /// ΔH°, ΔS° from one classic estimate (van 't Hoff fit of its ln K values).
@@ -216,6 +217,11 @@ pub(crate) fn pick_wavelengths(eps_free: &[f64], eps_complex: &[f64]) -> Option<
     Some((l1, l2))
 }
 
+/// `Some(v)` when every value is finite.
+fn finite(v: Vec<f64>) -> Option<Vec<f64>> {
+    v.iter().all(|x| x.is_finite()).then_some(v)
+}
+
 fn global_curves(fit: &HardFit, model: &ValidModel, set: &SpectraSet) -> Vec<LnKCurve> {
     let t = set.temperatures_k();
     let lo = t.iter().copied().fold(f64::INFINITY, f64::min);
@@ -237,8 +243,8 @@ fn global_curves(fit: &HardFit, model: &ValidModel, set: &SpectraSet) -> Vec<LnK
                 level: VANT_HOFF_LEVEL,
                 temperatures_k: grid.clone(),
                 ln_k: b.iter().map(|x| LN_10 * x.log_beta).collect(),
-                lower: b.iter().map(|x| LN_10 * x.lower).collect(),
-                upper: b.iter().map(|x| LN_10 * x.upper).collect(),
+                lower: finite(b.iter().map(|x| LN_10 * x.lower).collect()),
+                upper: finite(b.iter().map(|x| LN_10 * x.upper).collect()),
             })
         })
         .collect()
@@ -254,6 +260,17 @@ pub fn vant_hoff_table(fit: &HardFit, model: &ValidModel, set: &SpectraSet) -> V
         curves: global_curves(fit, model, set),
         ..VantHoffTable::default()
     };
+    for c in table
+        .curves
+        .iter()
+        .filter(|c| c.lower.is_none() || c.upper.is_none())
+    {
+        table.notes.push(format!(
+            "ln β of {} has no confidence band: the standard errors of its parameters are undefined \
+             (a parameter on its bound, or the data do not determine it)",
+            c.species
+        ));
+    }
     let temps: Vec<f64> = rows.iter().map(|&i| set.samples()[i].temperature_k).collect();
     for s in model.species().iter().filter(|s| s.role == SpeciesRole::Formed) {
         let Some(b) = fit.log_beta_at(model, &s.name, &temps, VANT_HOFF_LEVEL) else {
@@ -268,8 +285,8 @@ pub fn vant_hoff_table(fit: &HardFit, model: &ValidModel, set: &SpectraSet) -> V
                 temperature_k: x.temperature_k,
                 inverse_temperature_per_k: 1.0 / x.temperature_k,
                 ln_k_global: LN_10 * x.log_beta,
-                ln_k_lower: LN_10 * x.lower,
-                ln_k_upper: LN_10 * x.upper,
+                ln_k_lower: Some(LN_10 * x.lower).filter(|v| v.is_finite()),
+                ln_k_upper: Some(LN_10 * x.upper).filter(|v| v.is_finite()),
                 ln_k_classic_direct: None,
                 ln_k_classic_mass_balance: None,
             });
@@ -474,8 +491,8 @@ impl VantHoffTable {
                 format_float(p.temperature_k),
                 format_float(p.inverse_temperature_per_k),
                 format_float(p.ln_k_global),
-                format_float(p.ln_k_lower),
-                format_float(p.ln_k_upper),
+                opt(p.ln_k_lower),
+                opt(p.ln_k_upper),
                 opt(p.ln_k_classic_direct),
                 opt(p.ln_k_classic_mass_balance),
             ]);
