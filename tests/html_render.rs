@@ -4,13 +4,15 @@
 //! The browser test needs `/usr/bin/chromium` (Debian package `chromium`). Without it the test
 //! fails, unless `ISOSBESTIC_SKIP_BROWSER=1` is set, in which case it notes the skip and passes.
 
+mod support;
+
 use std::path::Path;
 use std::process::Command;
 
 use isosbestic::report::html::{Generation, Section, SummaryRow, escape, render_report};
 use isosbestic::report::plots::{
-    LnKBand, LnKPoints, Palette, ProfileSeries, concentration_profiles, measured_spectra, pure_spectra,
-    residual_map, singular_values, vant_hoff,
+    LnKBand, LnKPoints, Palette, ProfileSeries, concentration_profiles, evolving_factors, measured_spectra,
+    pure_spectra, residual_map, singular_values, vant_hoff,
 };
 use ndarray::Array2;
 
@@ -77,6 +79,13 @@ fn sample_report() -> String {
             concentrations: c2.view(),
         },
     ];
+    // evolving factors: one species throughout, a second rising from the third sample on
+    let forward = Array2::from_shape_fn((t_c.len(), 3), |(i, k)| match k {
+        0 => 0.5 + 0.02 * i as f64,
+        1 if i >= 2 => -1.5 + 0.1 * i as f64,
+        _ => -3.4 + 0.01 * i as f64,
+    });
+    let backward = Array2::from_shape_fn((t_c.len(), 3), |(i, k)| forward[[t_c.len() - 1 - i, k]]);
     let data = Section::new("Measured data")
         .with_note("Nine spectra of series A between 5 and 85 °C.")
         .with_row(SummaryRow::new("samples", "9", None, ""))
@@ -88,6 +97,10 @@ fn sample_report() -> String {
         .with_figure(
             "Singular values; two species absorb.",
             singular_values("Singular values", &[9.1, 1.3, 0.004, 0.0035, 0.003], Some(2), &p).unwrap(),
+        )
+        .with_figure(
+            "Evolving factors along temperature.",
+            evolving_factors("Evolving factors", &t_c, forward.view(), backward.view(), &p).unwrap(),
         );
     let fit = Section::new("Global fit")
         .with_row(SummaryRow::new("ΔH° of MBr⁺", "15.0", Some("0.6"), "kJ/mol"))
@@ -132,9 +145,11 @@ fn sample_report() -> String {
 fn the_report_is_self_contained_escaped_and_embeds_every_figure() {
     let page = sample_report();
     assert!(page.starts_with("<!DOCTYPE html>"));
-    assert_eq!(page.matches("<svg").count(), 6);
-    assert_eq!(page.matches("</svg>").count(), 6);
-    assert_eq!(page.matches("<figure>").count(), 6);
+    assert_eq!(page.matches("<svg").count(), 7);
+    assert_eq!(page.matches("</svg>").count(), 7);
+    assert_eq!(page.matches("<figure>").count(), 7);
+    assert!(page.contains("forward, factor 2") && page.contains("backward, factor 3"));
+    assert!(page.contains("95 % confidence band") && page.contains("classic estimates"));
     let lower = page.to_ascii_lowercase();
     for outside in [
         "http:", "https:", "src=", "href=", "<script", "<link", "@import", "url(",
@@ -165,16 +180,33 @@ fn run_chromium(args: &[&str]) -> std::process::Output {
         .unwrap_or_else(|e| panic!("cannot run {CHROMIUM}: {e}"))
 }
 
+/// Whether the browser is there; panics without it unless the skip is asked for.
+fn browser_available() -> bool {
+    if Path::new(CHROMIUM).exists() {
+        return true;
+    }
+    if std::env::var("ISOSBESTIC_SKIP_BROWSER").as_deref() == Ok("1") {
+        eprintln!("skipped: {CHROMIUM} not found and ISOSBESTIC_SKIP_BROWSER=1");
+        return false;
+    }
+    panic!("{CHROMIUM} not found: install the Debian package `chromium`, or set ISOSBESTIC_SKIP_BROWSER=1");
+}
+
+/// The DOM Chromium builds from a page file.
+fn rendered_dom(page: &Path) -> String {
+    let profile = tempfile::tempdir().unwrap();
+    let out = run_chromium(&[
+        &format!("--user-data-dir={}", profile.path().display()),
+        "--dump-dom",
+        &format!("file://{}", page.display()),
+    ]);
+    String::from_utf8_lossy(&out.stdout).into_owned()
+}
+
 #[test]
 fn the_report_renders_in_headless_chromium() {
-    if !Path::new(CHROMIUM).exists() {
-        if std::env::var("ISOSBESTIC_SKIP_BROWSER").as_deref() == Ok("1") {
-            eprintln!("skipped: {CHROMIUM} not found and ISOSBESTIC_SKIP_BROWSER=1");
-            return;
-        }
-        panic!(
-            "{CHROMIUM} not found: install the Debian package `chromium`, or set ISOSBESTIC_SKIP_BROWSER=1"
-        );
+    if !browser_available() {
+        return;
     }
     let dir = tempfile::tempdir().unwrap();
     let report = dir.path().join("report.html");
@@ -199,13 +231,7 @@ fn the_report_renders_in_headless_chromium() {
         std::fs::copy(&shot, &keep).unwrap();
         std::fs::copy(&report, format!("{keep}.html")).unwrap();
     }
-    let profile2 = tempfile::tempdir().unwrap();
-    let out = run_chromium(&[
-        &format!("--user-data-dir={}", profile2.path().display()),
-        "--dump-dom",
-        &url,
-    ]);
-    let dom = String::from_utf8_lossy(&out.stdout);
+    let dom = rendered_dom(&report);
     for heading in [
         "Demo report: metal bromide in brine",
         "Measured data",
@@ -213,10 +239,46 @@ fn the_report_renders_in_headless_chromium() {
     ] {
         assert!(dom.contains(heading), "rendered DOM lacks {heading}");
     }
-    // the browser parsed all six figures as SVG elements
+    // the browser parsed all seven figures as SVG elements, the new ones among them
     assert_eq!(
         dom.matches("<svg").count(),
-        6,
+        7,
         "rendered DOM has a different number of SVGs"
     );
+    for text in ["forward, factor 1", "95 % confidence band"] {
+        assert!(dom.contains(text), "rendered DOM lacks {text}");
+    }
+}
+
+/// A real fit page (simulated one-complex data through `run_fit` and `write_fit_page`) renders
+/// with every figure, the van 't Hoff plot and the evolving factors among them.
+#[test]
+fn a_fit_page_renders_with_its_van_t_hoff_and_evolving_factor_figures() {
+    use isosbestic::report::fit::{FIT_PAGE_OUTPUTS, run_fit, write_fit_page};
+    if !browser_available() {
+        return;
+    }
+    let dir = tempfile::tempdir().unwrap();
+    let config = support::write_inputs(dir.path(), support::ONE_COMPLEX, &["M", "MX"]);
+    let (report, set) = run_fit(&config).unwrap();
+    let out = dir.path().join("out");
+    std::fs::create_dir_all(&out).unwrap();
+    write_fit_page(&out, &report, &set, "2026-12-02T02:00:00Z", false).unwrap();
+    let dom = rendered_dom(&out.join("report.html"));
+    assert_eq!(
+        dom.matches("<svg").count(),
+        FIT_PAGE_OUTPUTS.len() - 1,
+        "rendered fit page has a different number of SVGs"
+    );
+    for text in [
+        "van 't Hoff plot",
+        "classic direct",
+        "classic mass balance",
+        "ln β MX, global fit",
+        "forward, factor 1",
+        "backward, factor 2",
+        "ΔH° of MX, global fit",
+    ] {
+        assert!(dom.contains(text), "rendered fit page lacks {text}");
+    }
 }

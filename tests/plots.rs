@@ -1,6 +1,8 @@
 //! Every plot is a well-formed SVG document carrying its axis labels and one drawn element per
 //! series; bad inputs give a typed error, never a panic.
 
+mod support;
+
 use isosbestic::factor::{FactorParams, analyse};
 use isosbestic::report::plots::{
     LnKBand, LnKPoints, MAX_HEAT_COLUMNS, Palette, PlotError, ProfileSeries, concentration_profiles,
@@ -9,8 +11,7 @@ use isosbestic::report::plots::{
     vant_hoff_of, write_svg,
 };
 use isosbestic::resolve::hard::{HardFitParams, fit};
-use isosbestic::simulate::{Band, Noise, PureSpectrum, SeriesPlan, SimulationPlan, simulate};
-use isosbestic::speciation::{EquilibriumModel, ValidModel};
+use isosbestic::simulate::simulate;
 use isosbestic::thermo::{ConstantScale, KData, VanThoffParams, fit_vant_hoff};
 use ndarray::Array2;
 
@@ -358,66 +359,11 @@ fn bad_inputs_give_typed_errors_not_panics() {
     ));
 }
 
-fn model() -> ValidModel {
-    EquilibriumModel::from_toml_str(
-        r#"
-        components = [{ name = "M", absorbs = true }, { name = "X", absorbs = false }]
-        [[species]]
-        name = "MX"
-        stoichiometry = { M = 1, X = 1 }
-        absorbs = true
-        law = { kind = "van_t_hoff", log_beta_ref = { value = 0.4 }, dh_ref = { value = 12000.0 } }
-        "#,
-    )
-    .unwrap()
-    .check()
-    .unwrap()
-}
-
-fn plan() -> SimulationPlan {
-    let band = |c: f64, w: f64, h: f64| Band {
-        centre_nm: c,
-        width_nm: w,
-        height: h,
-        shift_nm_per_k: 0.0,
-    };
-    SimulationPlan {
-        seed: 3,
-        first_nm: 400.0,
-        last_nm: 650.0,
-        step_nm: 10.0,
-        temperatures_c: vec![10.0, 30.0, 50.0, 70.0],
-        path_cm: 1.0,
-        preparation_temperature_c: 25.0,
-        thermal_expansion: false,
-        noise: Noise::None,
-        offset_sd_au: 0.0,
-        slope_sd_au_per_100nm: 0.0,
-        series: [0.3, 3.0]
-            .iter()
-            .map(|&x| SeriesPlan {
-                label: format!("X{x}"),
-                totals_m: [("M".into(), 0.02), ("X".into(), x)].into(),
-            })
-            .collect(),
-        spectra: vec![
-            PureSpectrum {
-                species: "M".into(),
-                bands: vec![band(420.0, 30.0, 6.0)],
-            },
-            PureSpectrum {
-                species: "MX".into(),
-                bands: vec![band(520.0, 35.0, 20.0)],
-            },
-        ],
-    }
-}
-
 #[test]
 fn convenience_functions_plot_the_crates_result_types_and_files_are_written() {
     let p = Palette::default();
-    let m = model();
-    let sim = simulate(&m, &plan()).unwrap();
+    let m = support::model(support::ONE_COMPLEX);
+    let sim = simulate(&m, &support::plan(&["M", "MX"])).unwrap();
     let set = &sim.set;
     let spectra = measured_spectra_of(set, &p).unwrap();
     assert!(count(&spectra, "polyline") >= set.n_samples());
@@ -464,7 +410,7 @@ fn convenience_functions_plot_the_crates_result_types_and_files_are_written() {
     assert!(
         irows
             .iter()
-            .any(|r| r.label == "series X0.3" && r.value.starts_with("4 samples, 10.0 to 70.0"))
+            .any(|r| r.label == "series X0.3" && r.value.starts_with("5 samples, 10.0 to 70.0"))
     );
     let vrows = isosbestic::report::html::vant_hoff_rows(&vf);
     assert_eq!(vrows[0].label, "ΔH°");

@@ -12,6 +12,17 @@ use sha2::{Digest, Sha256};
 use std::fmt;
 use std::path::{Path, PathBuf};
 
+mod candidates;
+mod vant_hoff;
+pub use candidates::{
+    CandidateResult, FailedCandidate, FittedCandidate, ModelComparison, candidate_names, compare_candidates,
+    is_nested_in,
+};
+pub use vant_hoff::{
+    CURVE_POINTS, ClassicComparison, ClassicThermo, LnKCurve, VANT_HOFF_LEVEL, VantHoffPoint, VantHoffTable,
+    vant_hoff_table,
+};
+
 /// Everything a fit run needs, as one serde structure (a run configuration file in TOML).
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
 #[serde(deny_unknown_fields)]
@@ -26,6 +37,10 @@ pub struct FitRunConfig {
     /// Fit settings.
     #[serde(default)]
     pub fit: HardFitParams,
+    /// Further candidate model files fitted to the same data and ranked against `model`
+    /// (see [`ModelComparison`]).
+    #[serde(default, skip_serializing_if = "Vec::is_empty")]
+    pub candidates: Vec<PathBuf>,
 }
 
 /// One input file with its SHA-256 checksum, so a report names exactly what it was made from.
@@ -231,6 +246,13 @@ pub struct FitReport {
     pub fit: HardFit,
     /// Findings to read.
     pub diagnostics: Vec<Diagnostic>,
+    /// ln K against 1/T: the global fit's curves and, for a two-absorber model, the classic
+    /// two-wavelength estimates beside them.
+    #[serde(default)]
+    pub vant_hoff: VantHoffTable,
+    /// The ranking of the candidate models, when the run has candidates.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub model_comparison: Option<ModelComparison>,
 }
 
 /// Runs a fit from a configuration: read, preprocess, fit, diagnose.
@@ -251,6 +273,8 @@ pub fn run_fit(config: &FitRunConfig) -> Result<(FitReport, SpectraSet)> {
     let (set, preprocessing) = config.preprocess.clone().check()?.apply(&set)?;
     let fit = hard::fit(&set, &model, &config.fit)?;
     let diagnostics = diagnose(&set, &fit, &config.fit);
+    let vant_hoff = vant_hoff_table(&fit, &model, &set);
+    let model_comparison = fit_candidates(config, &set, &model, &fit, &mut inputs)?;
     let report = FitReport {
         software: format!("isosbestic {}", env!("CARGO_PKG_VERSION")),
         inputs,
@@ -262,8 +286,63 @@ pub fn run_fit(config: &FitRunConfig) -> Result<(FitReport, SpectraSet)> {
         preprocessing,
         fit,
         diagnostics,
+        vant_hoff,
+        model_comparison,
     };
     Ok((report, set))
+}
+
+/// Fits every candidate model of `config` to the same preprocessed data with the same settings
+/// and ranks them together with the main model (`None` without candidates). A candidate file
+/// that cannot be read is an error; a candidate whose fit cannot be run is listed as failed.
+fn fit_candidates(
+    config: &FitRunConfig,
+    set: &SpectraSet,
+    model: &ValidModel,
+    fit: &HardFit,
+    inputs: &mut Vec<InputFile>,
+) -> Result<Option<ModelComparison>> {
+    if config.candidates.is_empty() {
+        return Ok(None);
+    }
+    let paths: Vec<PathBuf> = std::iter::once(config.model.clone())
+        .chain(config.candidates.iter().cloned())
+        .collect();
+    let names = candidate_names(&paths);
+    let mut models = Vec::with_capacity(config.candidates.len());
+    for path in &config.candidates {
+        inputs.push(checksum(path)?);
+        models.push(read_model(path)?);
+    }
+    let results: Vec<std::result::Result<HardFit, String>> = models
+        .iter()
+        .map(|m| hard::fit(set, m, &config.fit).map_err(|e| e.to_string()))
+        .collect();
+    let mut fitted = vec![FittedCandidate {
+        name: &names[0],
+        path: &paths[0],
+        primary: true,
+        model,
+        fit,
+    }];
+    let mut failed = Vec::new();
+    for (i, r) in results.iter().enumerate() {
+        match r {
+            Ok(f) => fitted.push(FittedCandidate {
+                name: &names[i + 1],
+                path: &paths[i + 1],
+                primary: false,
+                model: &models[i],
+                fit: f,
+            }),
+            Err(reason) => failed.push(FailedCandidate {
+                name: names[i + 1].clone(),
+                model: paths[i + 1].clone(),
+                reason: reason.clone(),
+            }),
+        }
+    }
+    Ok(Some(compare_candidates(&fitted, failed)))
 }
 
 /// Diagnostics of a finished fit.
@@ -346,13 +425,18 @@ pub fn diagnose(set: &SpectraSet, fit: &HardFit, params: &HardFitParams) -> Vec<
 }
 
 /// Names of the files [`write_fit_outputs`] writes.
-pub const FIT_OUTPUTS: [&str; 5] = [
+pub const FIT_OUTPUTS: [&str; 6] = [
     "report.json",
     "parameters.csv",
     "thermodynamics.csv",
     "concentrations.csv",
     "pure_spectra.csv",
+    "vant_hoff_points.csv",
 ];
+
+/// The table [`write_fit_outputs`] writes besides [`FIT_OUTPUTS`] when the run ranked
+/// candidate models.
+pub const MODEL_COMPARISON_CSV: &str = "model_comparison.csv";
 
 /// Writes the report and its tables into `dir` (created if needed), atomically.
 ///
@@ -366,7 +450,10 @@ pub fn write_fit_outputs(dir: &Path, report: &FitReport, force: bool) -> Result<
         path: dir.to_path_buf(),
         source,
     })?;
-    let targets: Vec<PathBuf> = FIT_OUTPUTS.iter().map(|n| dir.join(n)).collect();
+    let mut targets: Vec<PathBuf> = FIT_OUTPUTS.iter().map(|n| dir.join(n)).collect();
+    if report.model_comparison.is_some() {
+        targets.push(dir.join(MODEL_COMPARISON_CSV));
+    }
     guard_outputs(&targets, &report.inputs, force)?;
     write_json(&targets[0], "fit-report", report)?;
     let fit = &report.fit;
@@ -456,17 +543,23 @@ pub fn write_fit_outputs(dir: &Path, report: &FitReport, force: bool) -> Result<
         );
     }
     spectra.write_csv(&targets[4])?;
+    report.vant_hoff.write_csv(&targets[5])?;
+    if let (Some(c), Some(t)) = (&report.model_comparison, targets.get(FIT_OUTPUTS.len())) {
+        c.write_csv(t)?;
+    }
     Ok(targets)
 }
 
 /// Names of the figures and page [`write_fit_page`] writes.
-pub const FIT_PAGE_OUTPUTS: [&str; 6] = [
+pub const FIT_PAGE_OUTPUTS: [&str; 8] = [
     "report.html",
     "measured_spectra.svg",
     "pure_spectra.svg",
     "concentration_profiles.svg",
     "residual_map.svg",
     "singular_values.svg",
+    "vant_hoff.svg",
+    "evolving_factors.svg",
 ];
 
 /// Writes the SVG figures and the self-contained `report.html` of a fit into `dir`.
@@ -506,7 +599,12 @@ pub fn write_fit_page(
         None,
         &palette,
     )?;
-    let figures = [&measured, &pure, &profiles, &residual_map, &sv];
+    let vant_hoff = plots::vant_hoff_of_table(&report.vant_hoff, &palette)?;
+    // EFA along increasing temperature, one factor beyond the model's rank (the noise level)
+    let n_factors = (report.fit.design_singular_values.len() + 1).clamp(2, 8);
+    let summary = crate::factor::analyse(set, &crate::factor::FactorParams::default().max_rank(n_factors))?;
+    let efa = plots::evolving_factors_of(&summary, set, &palette)?;
+    let figures = [&measured, &pure, &profiles, &residual_map, &sv, &vant_hoff, &efa];
     for (t, svg) in targets[1..].iter().zip(figures) {
         plots::write_svg(t, svg)?;
     }
@@ -530,8 +628,14 @@ pub fn write_fit_page(
     for d in &report.diagnostics {
         fit_section = fit_section.with_note(format!("Note: {d}"));
     }
-    let sections = [
-        Section::new("Measured spectra").with_figure("Measured spectra coloured by temperature", measured),
+    let mut sections = vec![
+        Section::new("Measured spectra")
+            .with_figure("Measured spectra coloured by temperature", measured)
+            .with_figure(
+                "Evolving factor analysis: singular values of growing (forward, solid) and shrinking \
+                 (backward, dashed) windows of samples in order of temperature",
+                efa,
+            ),
         fit_section
             .with_figure("Resolved pure spectra with ±2σ bands", pure)
             .with_figure("Concentration profiles against temperature, per series", profiles),
@@ -541,13 +645,108 @@ pub fn write_fit_page(
                 "Singular values of the residual matrix: structure stands out above the noise floor",
                 sv,
             ),
+        vant_hoff_section(&report.vant_hoff).with_figure(
+            "van 't Hoff plot: ln K against 1/T with the global fit's 95 % band and the classic estimates",
+            vant_hoff,
+        ),
     ];
+    if let Some(c) = &report.model_comparison {
+        sections.push(comparison_section(c));
+    }
     let page = render_report("isosbestic global fit", &generation, &sections);
     crate::report::atomic::write_atomic(&targets[0], page.as_bytes()).map_err(|source| Error::Output {
         path: targets[0].clone(),
         source,
     })?;
     Ok(targets)
+}
+
+/// The page section of the van 't Hoff table: the ΔH°/ΔS° comparison rows and the notes.
+fn vant_hoff_section(table: &VantHoffTable) -> crate::report::html::Section {
+    use crate::report::html::{Section, SummaryRow, format_with_uncertainty};
+    let mut section = Section::new("van 't Hoff plot");
+    if let Some(c) = &table.classic {
+        let mut row = |label: String, v: Option<[f64; 2]>, scale: f64, unit: &str| {
+            section.summary.push(match v {
+                Some([x, se]) => {
+                    let (v, u) = format_with_uncertainty(x / scale, se / scale);
+                    SummaryRow::new(label, v, u.as_deref(), unit)
+                }
+                None => SummaryRow::new(label, "not available", None, unit),
+            });
+        };
+        for (quantity, scale, unit) in [("ΔH°", 1e3, "kJ/mol"), ("ΔS°", 1.0, "J/(K mol)")] {
+            for (name, dh, ds) in c.estimates() {
+                let value = if quantity == "ΔH°" { dh } else { ds };
+                row(
+                    format!("{quantity} of {}, {name}", c.complex_species),
+                    value,
+                    scale,
+                    unit,
+                );
+            }
+        }
+        section = section.with_note(format!(
+            "Classic estimates read {} at {:.1} nm and {} at {:.1} nm (each species' band where the other \
+             absorbs least, on each spectrum's own scale), with the fitted ε and cross absorption neglected.",
+            c.free_species, c.free_wavelength_nm, c.complex_species, c.complex_wavelength_nm
+        ));
+        for t in [&c.direct, &c.mass_balance] {
+            if let Some(f) = &t.failure {
+                section = section.with_note(format!("{:?} estimate: {f}", t.method));
+            }
+            if !t.excluded.is_empty() {
+                section = section.with_note(format!(
+                    "{:?} estimate: {} samples without a K (a concentration came out ≤ 0).",
+                    t.method,
+                    t.excluded.len()
+                ));
+            }
+        }
+    }
+    for n in &table.notes {
+        section = section.with_note(format!("Note: {n}"));
+    }
+    section
+}
+
+/// The page section ranking the candidate models.
+fn comparison_section(c: &ModelComparison) -> crate::report::html::Section {
+    use crate::report::html::{Section, SummaryRow};
+    let mut section = Section::new("Model comparison").with_note(format!(
+        "Candidates fitted to the same {} data values, ranked by AIC = n ln(RSS/n) + 2k (Akaike 1974); \
+         BIC = n ln(RSS/n) + k ln n (Schwarz 1978). Rows give ΔAIC; k counts the thermodynamic \
+         and the linear (spectra, baseline) parameters.",
+        c.n_data
+    ));
+    for r in &c.candidates {
+        section.summary.push(SummaryRow::new(
+            format!(
+                "{}. {}{} (k = {}, BIC {:.1})",
+                r.rank,
+                r.name,
+                if r.primary { ", main model" } else { "" },
+                r.n_parameters,
+                r.bic
+            ),
+            format!("{:.2}", r.delta_aic),
+            None,
+            "ΔAIC",
+        ));
+    }
+    for t in &c.nested_tests {
+        section = section.with_note(format!(
+            "F-test of {} within {}: F = {:.4}, p = {}.",
+            t.simpler,
+            t.richer,
+            t.f,
+            candidates::p_text(t.p_value)
+        ));
+    }
+    for f in &c.failed {
+        section = section.with_note(format!("{} could not be fitted: {}", f.name, f.reason));
+    }
+    section
 }
 
 /// Refuses outputs that would overwrite an input, or an earlier output without `force`.
@@ -629,6 +828,11 @@ impl fmt::Display for FitReport {
                 se[2]
             )?;
         }
+        write_vant_hoff_comparison(f, &self.vant_hoff)?;
+        if let Some(c) = &self.model_comparison {
+            writeln!(f)?;
+            write!(f, "{c}")?;
+        }
         if !self.diagnostics.is_empty() {
             writeln!(f)?;
             for d in &self.diagnostics {
@@ -637,4 +841,40 @@ impl fmt::Display for FitReport {
         }
         Ok(())
     }
+}
+
+/// The terminal lines comparing ΔH° of the global fit with the classic estimates.
+fn write_vant_hoff_comparison(f: &mut fmt::Formatter<'_>, table: &VantHoffTable) -> fmt::Result {
+    if let Some(c) = &table.classic {
+        writeln!(f)?;
+        writeln!(
+            f,
+            "van 't Hoff comparison for {} (classic: {} at {:.1} nm, {} at {:.1} nm):",
+            c.complex_species,
+            c.free_species,
+            c.free_wavelength_nm,
+            c.complex_species,
+            c.complex_wavelength_nm
+        )?;
+        for (name, dh, ds) in c.estimates() {
+            match (dh, ds) {
+                (Some([h, sh]), Some([s, ss])) => writeln!(
+                    f,
+                    "  {name:<22} ΔH° {:>10.3} ± {:<8.3} kJ/mol   ΔS° {:>9.2} ± {:<7.2} J/(K mol)",
+                    h / 1e3,
+                    sh / 1e3,
+                    s,
+                    ss
+                )?,
+                _ => writeln!(f, "  {name:<22} not available")?,
+            }
+        }
+    }
+    if !table.notes.is_empty() {
+        writeln!(f)?;
+        for n in &table.notes {
+            writeln!(f, "  note: {n}")?;
+        }
+    }
+    Ok(())
 }

@@ -134,16 +134,7 @@ fn six_significant(v: f64) -> String {
         return format!("{v:.5e}");
     }
     let decimals = (5 - v.abs().log10().floor() as i32).max(0) as usize;
-    let mut s = format!("{v:.decimals$}");
-    if s.contains('.') {
-        while s.ends_with('0') {
-            s.pop();
-        }
-        if s.ends_with('.') {
-            s.pop();
-        }
-    }
-    s
+    crate::report::plots::fixed_trimmed(v, decimals)
 }
 
 /// Summary rows of a global fit: every fitted parameter with its standard error and unit, the

@@ -11,7 +11,7 @@
 //! | measured spectra coloured by temperature | [`measured_spectra`] | wavelength / nm, absorbance |
 //! | pure spectra ε(λ) with ±2σ bands | [`pure_spectra`] | wavelength / nm, ε / (L mol⁻¹ cm⁻¹) |
 //! | concentration profiles per series | [`concentration_profiles`] | temperature / °C, concentration / (mol/L) |
-//! | van 't Hoff plot with 95 % band | [`vant_hoff`] | 10³ K / T, ln K |
+//! | van 't Hoff plot with 95 % band | [`vant_hoff`], [`vant_hoff_bands`] | 10³ K / T, ln K |
 //! | residual map | [`residual_map`] | wavelength / nm, sample |
 //! | singular values | [`singular_values`] | factor number, log₁₀ singular value |
 //! | evolving factors | [`evolving_factors`] | sample (temperature order), log₁₀ singular value |
@@ -49,6 +49,8 @@ use thiserror::Error;
 
 use crate::data::{SampleRole, SpectraSet};
 use crate::factor::FactorSummary;
+use crate::report::fit::VantHoffTable;
+use crate::resolve::classic::ClassicMethod;
 use crate::resolve::hard::HardFit;
 use crate::thermo::VanThoffFit;
 
@@ -432,22 +434,24 @@ fn tick_text(v: f64, span: f64) -> String {
         return s.replace("e-", "e−").replace('-', "−");
     }
     let decimals = (3 - a.log10().floor() as i32).clamp(0, 6) as usize;
-    let mut s = format!("{v:.decimals$}");
+    fixed_trimmed(v, decimals).replace('-', "−")
+}
+
+/// `v` with `decimals` decimals, trailing zeros (and a bare decimal point) removed.
+pub(crate) fn fixed_trimmed(v: f64, decimals: usize) -> String {
+    let s = format!("{v:.decimals$}");
     if s.contains('.') {
-        while s.ends_with('0') {
-            s.pop();
-        }
-        if s.ends_with('.') {
-            s.pop();
-        }
+        s.trim_end_matches('0').trim_end_matches('.').to_string()
+    } else {
+        s
     }
-    s.replace('-', "−")
 }
 
 type Chart<'a, 'b> = ChartContext<'a, SVGBackend<'b>, Cartesian2d<RangedCoordf64, RangedCoordf64>>;
 type Root<'b> = DrawingArea<SVGBackend<'b>, plotters::coord::Shift>;
 
-/// Axis description for one chart.
+/// Axis description of one chart: ranges, titles, label areas, tick text and whether a legend
+/// is drawn. Ticks are numbers ([`tick_text`] over the axis span) unless a formatter is given.
 struct Axes<'s> {
     x: Range<f64>,
     y: Range<f64>,
@@ -455,44 +459,76 @@ struct Axes<'s> {
     y_desc: &'s str,
     right_margin: u32,
     y_label_area: u32,
+    x_ticks: Option<&'s dyn Fn(&f64) -> String>,
+    y_ticks: Option<&'s dyn Fn(&f64) -> String>,
+    legend: bool,
 }
 
-/// Draws the common frame (background, title, mesh, axis descriptions) and returns the chart.
-fn frame<'a, 'b>(
+impl<'s> Axes<'s> {
+    /// Numeric ticks, a 64-pixel y label area, no extra right margin, a legend.
+    fn new(x: Range<f64>, y: Range<f64>, x_desc: &'s str, y_desc: &'s str) -> Self {
+        Self {
+            x,
+            y,
+            x_desc,
+            y_desc,
+            right_margin: 0,
+            y_label_area: 64,
+            x_ticks: None,
+            y_ticks: None,
+            legend: true,
+        }
+    }
+}
+
+/// Draws one chart as an SVG document of the palette's size: the frame (background, title,
+/// mesh, axis titles and ticks), then `draw` on the chart (with the root area, for colour bars
+/// outside the plotting area), then the legend of the labelled series.
+fn chart_svg(
     plot: &'static str,
-    root: &'a Root<'b>,
     title: &str,
     axes: &Axes<'_>,
-    x_fmt: &dyn Fn(&f64) -> String,
-    y_fmt: &dyn Fn(&f64) -> String,
     palette: &Palette,
-) -> Result<Chart<'a, 'b>, PlotError> {
-    root.fill(&palette.background.to_plotters())
-        .map_err(draw_err(plot))?;
-    let mut chart = ChartBuilder::on(root)
-        .caption(title, palette.font(palette.title_size))
-        .margin(14)
-        .margin_right(14 + axes.right_margin)
-        .x_label_area_size(52)
-        .y_label_area_size(axes.y_label_area)
-        .build_cartesian_2d(axes.x.clone(), axes.y.clone())
-        .map_err(draw_err(plot))?;
-    chart
-        .configure_mesh()
-        .x_desc(axes.x_desc)
-        .y_desc(axes.y_desc)
-        .axis_desc_style(palette.font(palette.label_size))
-        .label_style(palette.font(palette.tick_size))
-        .bold_line_style(palette.grid.to_plotters())
-        .light_line_style(palette.grid_light.to_plotters())
-        .axis_style(palette.axis.to_plotters())
-        .x_labels(8)
-        .y_labels(8)
-        .x_label_formatter(x_fmt)
-        .y_label_formatter(y_fmt)
-        .draw()
-        .map_err(draw_err(plot))?;
-    Ok(chart)
+    draw: impl for<'a, 'b> FnOnce(&'a Root<'b>, &mut Chart<'a, 'b>) -> Result<(), PlotError>,
+) -> Result<String, PlotError> {
+    let (xs, ys) = (axes.x.end - axes.x.start, axes.y.end - axes.y.start);
+    let x_numbers = move |v: &f64| tick_text(*v, xs);
+    let y_numbers = move |v: &f64| tick_text(*v, ys);
+    let mut buf = String::new();
+    {
+        let root = SVGBackend::with_string(&mut buf, palette.size).into_drawing_area();
+        root.fill(&palette.background.to_plotters())
+            .map_err(draw_err(plot))?;
+        let mut chart = ChartBuilder::on(&root)
+            .caption(title, palette.font(palette.title_size))
+            .margin(14)
+            .margin_right(14 + axes.right_margin)
+            .x_label_area_size(52)
+            .y_label_area_size(axes.y_label_area)
+            .build_cartesian_2d(axes.x.clone(), axes.y.clone())
+            .map_err(draw_err(plot))?;
+        chart
+            .configure_mesh()
+            .x_desc(axes.x_desc)
+            .y_desc(axes.y_desc)
+            .axis_desc_style(palette.font(palette.label_size))
+            .label_style(palette.font(palette.tick_size))
+            .bold_line_style(palette.grid.to_plotters())
+            .light_line_style(palette.grid_light.to_plotters())
+            .axis_style(palette.axis.to_plotters())
+            .x_labels(8)
+            .y_labels(8)
+            .x_label_formatter(axes.x_ticks.unwrap_or(&x_numbers))
+            .y_label_formatter(axes.y_ticks.unwrap_or(&y_numbers))
+            .draw()
+            .map_err(draw_err(plot))?;
+        draw(&root, &mut chart)?;
+        if axes.legend {
+            draw_legend(plot, &mut chart, palette)?;
+        }
+        root.present().map_err(draw_err(plot))?;
+    }
+    Ok(buf)
 }
 
 fn draw_legend<'a, 'b: 'a>(
@@ -510,19 +546,40 @@ fn draw_legend<'a, 'b: 'a>(
         .map_err(draw_err(plot))
 }
 
-/// Renders `draw` into an SVG string of the palette's size.
-fn render(
+/// Legend key of a line series: a short stroke.
+fn line_key(style: ShapeStyle) -> impl Fn((i32, i32)) -> PathElement<(i32, i32)> {
+    move |(x, y)| PathElement::new(vec![(x, y), (x + 18, y)], style)
+}
+
+/// Legend key of a shaded band: a small filled rectangle.
+fn swatch_key(shade: ShapeStyle) -> impl Fn((i32, i32)) -> Rectangle<(i32, i32)> {
+    move |(x, y)| Rectangle::new([(x, y - 5), (x + 18, y + 5)], shade)
+}
+
+/// A shaded band between `lower` and `upper` over `x` (in drawing order): the upper edge out,
+/// the lower edge back; with a legend swatch when `label` is given.
+fn draw_band(
     plot: &'static str,
-    palette: &Palette,
-    draw: impl FnOnce(&Root<'_>) -> Result<(), PlotError>,
-) -> Result<String, PlotError> {
-    let mut buf = String::new();
-    {
-        let root = SVGBackend::with_string(&mut buf, palette.size).into_drawing_area();
-        draw(&root)?;
-        root.present().map_err(draw_err(plot))?;
+    chart: &mut Chart<'_, '_>,
+    x: &[f64],
+    lower: &[f64],
+    upper: &[f64],
+    shade: ShapeStyle,
+    label: Option<&str>,
+) -> Result<(), PlotError> {
+    let outline: Vec<(f64, f64)> = x
+        .iter()
+        .zip(upper)
+        .map(|(&x, &u)| (x, u))
+        .chain(x.iter().zip(lower).rev().map(|(&x, &l)| (x, l)))
+        .collect();
+    let ann = chart
+        .draw_series(std::iter::once(Polygon::new(outline, shade)))
+        .map_err(draw_err(plot))?;
+    if let Some(l) = label {
+        ann.label(l).legend(swatch_key(shade));
     }
-    Ok(buf)
+    Ok(())
 }
 
 fn line_style(c: Rgb, palette: &Palette) -> ShapeStyle {
@@ -651,25 +708,12 @@ pub fn measured_spectra(
     };
     let x = padded_range(wavelengths_nm.iter().copied(), 0.0);
     let y = with_headroom(padded_range(absorbance.iter().copied(), 0.05), 3, palette);
-    let (xs, ys) = (x.end - x.start, y.end - y.start);
-    render(PLOT, palette, |root| {
-        let axes = Axes {
-            x,
-            y,
-            x_desc: "wavelength / nm",
-            y_desc: "absorbance",
-            right_margin: 0,
-            y_label_area: 70,
-        };
-        let mut chart = frame(
-            PLOT,
-            root,
-            title,
-            &axes,
-            &|v| tick_text(*v, xs),
-            &|v| tick_text(*v, ys),
-            palette,
-        )?;
+    let axes = Axes {
+        y_label_area: 70,
+        legend: false,
+        ..Axes::new(x, y, "wavelength / nm", "absorbance")
+    };
+    chart_svg(PLOT, title, &axes, palette, |root, chart| {
         // hottest last so that warm curves sit on top; ties keep input order
         let mut order: Vec<usize> = (0..temperatures_c.len()).collect();
         order.sort_by(|&a, &b| temperatures_c[a].total_cmp(&temperatures_c[b]));
@@ -684,7 +728,7 @@ pub fn measured_spectra(
         colour_bar_horizontal(
             PLOT,
             root,
-            &chart,
+            chart,
             "temperature / °C",
             (format!("{t_lo:.1}"), format!("{t_hi:.1}")),
             |t| palette.temperature_colour(t),
@@ -758,42 +802,19 @@ pub fn pure_spectra(
     let x = padded_range(wavelengths_nm.iter().copied(), 0.0);
     let entries = species.len() + usize::from(standard_errors.is_some());
     let y = with_headroom(padded_range(extremes.into_iter(), 0.05), entries, palette);
-    let (xs, ys) = (x.end - x.start, y.end - y.start);
-    render(PLOT, palette, |root| {
-        let axes = Axes {
-            x,
-            y,
-            x_desc: "wavelength / nm",
-            y_desc: "molar absorptivity ε / (L mol⁻¹ cm⁻¹)",
-            right_margin: 0,
-            y_label_area: 76,
-        };
-        let mut chart = frame(
-            PLOT,
-            root,
-            title,
-            &axes,
-            &|v| tick_text(*v, xs),
-            &|v| tick_text(*v, ys),
-            palette,
-        )?;
+    let axes = Axes {
+        y_label_area: 76,
+        ..Axes::new(x, y, "wavelength / nm", "molar absorptivity ε / (L mol⁻¹ cm⁻¹)")
+    };
+    chart_svg(PLOT, title, &axes, palette, |_, chart| {
         for (k, name) in species.iter().enumerate() {
             let colour = palette.category(k);
             if standard_errors.is_some() {
-                let mut poly: Vec<(f64, f64)> = (0..wavelengths_nm.len())
-                    .map(|i| (wavelengths_nm[i], spectra[[i, k]] + band(i, k)))
-                    .collect();
-                poly.extend(
-                    (0..wavelengths_nm.len())
-                        .rev()
-                        .map(|i| (wavelengths_nm[i], spectra[[i, k]] - band(i, k))),
-                );
-                chart
-                    .draw_series(std::iter::once(Polygon::new(
-                        poly,
-                        colour.to_plotters().mix(palette.band_opacity).filled(),
-                    )))
-                    .map_err(draw_err(PLOT))?;
+                let n = wavelengths_nm.len();
+                let lower: Vec<f64> = (0..n).map(|i| spectra[[i, k]] - band(i, k)).collect();
+                let upper: Vec<f64> = (0..n).map(|i| spectra[[i, k]] + band(i, k)).collect();
+                let shade = colour.to_plotters().mix(palette.band_opacity).filled();
+                draw_band(PLOT, chart, wavelengths_nm, &lower, &upper, shade, None)?;
             }
             let column = spectra.column(k);
             let pts = wavelengths_nm.iter().copied().zip(column.iter().copied());
@@ -802,7 +823,7 @@ pub fn pure_spectra(
                 .draw_series(LineSeries::new(pts, style))
                 .map_err(draw_err(PLOT))?
                 .label(*name)
-                .legend(move |(x, y)| PathElement::new(vec![(x, y), (x + 18, y)], style));
+                .legend(line_key(style));
         }
         if standard_errors.is_some() {
             let shade = palette.text.to_plotters().mix(palette.band_opacity).filled();
@@ -810,9 +831,9 @@ pub fn pure_spectra(
                 .draw_series(std::iter::empty::<Polygon<(f64, f64)>>())
                 .map_err(draw_err(PLOT))?
                 .label("band: ±2 standard errors")
-                .legend(move |(x, y)| Rectangle::new([(x, y - 5), (x + 18, y + 5)], shade));
+                .legend(swatch_key(shade));
         }
-        draw_legend(PLOT, &mut chart, palette)
+        Ok(())
     })
 }
 
@@ -926,25 +947,11 @@ pub fn concentration_profiles(
         species.len() + series.len(),
         palette,
     );
-    let (xs, ys) = (x.end - x.start, y.end - y.start);
-    render(PLOT, palette, |root| {
-        let axes = Axes {
-            x,
-            y,
-            x_desc: "temperature / °C",
-            y_desc: "concentration / (mol/L)",
-            right_margin: 0,
-            y_label_area: 80,
-        };
-        let mut chart = frame(
-            PLOT,
-            root,
-            title,
-            &axes,
-            &|v| tick_text(*v, xs),
-            &|v| tick_text(*v, ys),
-            palette,
-        )?;
+    let axes = Axes {
+        y_label_area: 80,
+        ..Axes::new(x, y, "temperature / °C", "concentration / (mol/L)")
+    };
+    chart_svg(PLOT, title, &axes, palette, |_, chart| {
         for (si, s) in series.iter().enumerate() {
             let mut order: Vec<usize> = (0..s.temperatures_c.len()).collect();
             order.sort_by(|&a, &b| s.temperatures_c[a].total_cmp(&s.temperatures_c[b]));
@@ -959,16 +966,15 @@ pub fn concentration_profiles(
                     .map_err(draw_err(PLOT))?;
                 if si == 0 {
                     let style = line_style(colour, palette);
-                    ann.label(*name)
-                        .legend(move |(x, y)| PathElement::new(vec![(x, y), (x + 18, y)], style));
+                    ann.label(*name).legend(line_key(style));
                 }
-                draw_markers(PLOT, &mut chart, &pts, Marker::nth(si), colour, None, palette)?;
+                draw_markers(PLOT, chart, &pts, Marker::nth(si), colour, None, palette)?;
             }
             // legend entry for the series' marker, in a neutral colour
             let label = format!("series {}", s.label);
             draw_markers(
                 PLOT,
-                &mut chart,
+                chart,
                 &[],
                 Marker::nth(si),
                 palette.axis,
@@ -976,7 +982,7 @@ pub fn concentration_profiles(
                 palette,
             )?;
         }
-        draw_legend(PLOT, &mut chart, palette)
+        Ok(())
     })
 }
 
@@ -1090,6 +1096,38 @@ pub fn vant_hoff(
     points: &[LnKPoints<'_>],
     palette: &Palette,
 ) -> Result<String, PlotError> {
+    vant_hoff_bands(
+        title,
+        band.map(std::slice::from_ref).unwrap_or_default(),
+        points,
+        palette,
+    )
+}
+
+/// As [`vant_hoff`] with any number of fitted curves (e.g. one per species of a model with
+/// stepwise complexes), each with its band in its own colour; the point sets follow in the
+/// next colours.
+///
+/// # Errors
+/// As [`vant_hoff`].
+///
+/// # Examples
+/// ```
+/// use isosbestic::report::plots::{vant_hoff_bands, LnKBand, Palette};
+/// let t = [290.0, 330.0];
+/// let b1 = LnKBand { label: "ln β ML", level: 0.95, temperatures_k: &t, ln_k: &[3.0, 2.0], lower: &[2.9, 1.9], upper: &[3.1, 2.1] };
+/// let b2 = LnKBand { label: "ln β ML2", ln_k: &[5.0, 3.5], lower: &[4.8, 3.3], upper: &[5.2, 3.7], ..b1.clone() };
+/// let svg = vant_hoff_bands("van 't Hoff plot", &[b1, b2], &[], &Palette::default())?;
+/// assert_eq!(svg.matches("<polygon").count(), 2);
+/// assert!(svg.contains("ln β ML2"));
+/// # Ok::<(), isosbestic::report::plots::PlotError>(())
+/// ```
+pub fn vant_hoff_bands(
+    title: &str,
+    bands: &[LnKBand<'_>],
+    points: &[LnKPoints<'_>],
+    palette: &Palette,
+) -> Result<String, PlotError> {
     const PLOT: &str = "van 't Hoff";
     let check_t = |what: &'static str, t: &[f64]| -> Result<(), PlotError> {
         check_1d(PLOT, what, t)?;
@@ -1103,7 +1141,7 @@ pub fn vant_hoff(
             None => Ok(()),
         }
     };
-    if band.is_none() && points.is_empty() {
+    if bands.is_empty() && points.is_empty() {
         return Err(PlotError::Empty {
             plot: PLOT,
             what: "band and points",
@@ -1111,7 +1149,7 @@ pub fn vant_hoff(
     }
     let mut xs_all = Vec::new();
     let mut ys_all = Vec::new();
-    if let Some(b) = band {
+    for b in bands {
         check_t("band temperatures", b.temperatures_k)?;
         let n = b.temperatures_k.len();
         for (what, v) in [
@@ -1133,51 +1171,33 @@ pub fn vant_hoff(
         ys_all.extend_from_slice(p.ln_k);
     }
     let x = padded_range(xs_all.into_iter(), 0.04);
-    let entries = points.len() + 2 * usize::from(band.is_some());
+    let entries = points.len() + 2 * bands.len();
     let y = with_headroom(padded_range(ys_all.into_iter(), 0.06), entries, palette);
-    let (xs, ys) = (x.end - x.start, y.end - y.start);
-    render(PLOT, palette, |root| {
-        let axes = Axes {
-            x,
-            y,
-            x_desc: "10³ K / T  (inverse temperature)",
-            y_desc: "ln K",
-            right_margin: 0,
-            y_label_area: 64,
-        };
-        let mut chart = frame(
-            PLOT,
-            root,
-            title,
-            &axes,
-            &|v| tick_text(*v, xs),
-            &|v| tick_text(*v, ys),
-            palette,
-        )?;
-        if let Some(b) = band {
-            let colour = palette.text;
+    let axes = Axes::new(x, y, "10³ K / T  (inverse temperature)", "ln K");
+    chart_svg(PLOT, title, &axes, palette, |_, chart| {
+        for (k, b) in bands.iter().enumerate() {
+            // a single curve is drawn in the text colour over a shaded band, several in their own colours
+            let colour = if bands.len() == 1 {
+                palette.text
+            } else {
+                palette.category(k)
+            };
             let mut order: Vec<usize> = (0..b.temperatures_k.len()).collect();
             order.sort_by(|&i, &j| b.temperatures_k[j].total_cmp(&b.temperatures_k[i]));
-            let mut poly: Vec<(f64, f64)> = order
-                .iter()
-                .map(|&i| (1e3 / b.temperatures_k[i], b.upper[i]))
-                .collect();
-            poly.extend(
-                order
-                    .iter()
-                    .rev()
-                    .map(|&i| (1e3 / b.temperatures_k[i], b.lower[i])),
-            );
+            let inverse_t: Vec<f64> = order.iter().map(|&i| 1e3 / b.temperatures_k[i]).collect();
+            let lower: Vec<f64> = order.iter().map(|&i| b.lower[i]).collect();
+            let upper: Vec<f64> = order.iter().map(|&i| b.upper[i]).collect();
             let shade = palette
-                .category(0)
+                .category(k)
                 .to_plotters()
                 .mix(palette.band_opacity)
                 .filled();
-            chart
-                .draw_series(std::iter::once(Polygon::new(poly, shade)))
-                .map_err(draw_err(PLOT))?
-                .label(format!("{:.0} % confidence band", 100.0 * b.level))
-                .legend(move |(x, y)| Rectangle::new([(x, y - 5), (x + 18, y + 5)], shade));
+            let band_label = if bands.len() == 1 {
+                format!("{:.0} % confidence band", 100.0 * b.level)
+            } else {
+                format!("{:.0} % band, {}", 100.0 * b.level, b.label)
+            };
+            draw_band(PLOT, chart, &inverse_t, &lower, &upper, shade, Some(&band_label))?;
             let style = line_style(colour, palette);
             chart
                 .draw_series(LineSeries::new(
@@ -1186,8 +1206,9 @@ pub fn vant_hoff(
                 ))
                 .map_err(draw_err(PLOT))?
                 .label(b.label)
-                .legend(move |(x, y)| PathElement::new(vec![(x, y), (x + 18, y)], style));
+                .legend(line_key(style));
         }
+        let first_point_colour = bands.len().max(1);
         for (k, p) in points.iter().enumerate() {
             let pts: Vec<(f64, f64)> = p
                 .temperatures_k
@@ -1197,15 +1218,15 @@ pub fn vant_hoff(
                 .collect();
             draw_markers(
                 PLOT,
-                &mut chart,
+                chart,
                 &pts,
                 Marker::nth(k),
-                palette.category(k + 1),
+                palette.category(k + first_point_colour),
                 Some(p.label),
                 palette,
             )?;
         }
-        draw_legend(PLOT, &mut chart, palette)
+        Ok(())
     })
 }
 
@@ -1255,6 +1276,65 @@ pub fn vant_hoff_of(
     }];
     sets.extend(extra.iter().cloned());
     vant_hoff("van 't Hoff plot", Some(&b), &sets, palette)
+}
+
+/// [`vant_hoff_bands`] of a global fit's van 't Hoff table: the fitted ln β(T) of every formed
+/// species with its 95 % band, and the classic direct and mass-balance ln K points when the
+/// table holds them.
+///
+/// # Errors
+/// As [`vant_hoff_bands`]; [`PlotError::Empty`] when the table holds no curve and no point.
+pub fn vant_hoff_of_table(table: &VantHoffTable, palette: &Palette) -> Result<String, PlotError> {
+    // a curve without a band (undefined standard errors) gets a zero-width band and says so
+    let labels: Vec<String> = table
+        .curves
+        .iter()
+        .map(|c| match (&c.lower, &c.upper) {
+            (Some(_), Some(_)) => format!("ln β {}, global fit", c.species),
+            _ => format!("ln β {}, global fit (no band)", c.species),
+        })
+        .collect();
+    let bands: Vec<LnKBand<'_>> = table
+        .curves
+        .iter()
+        .zip(&labels)
+        .map(|(c, label)| LnKBand {
+            label,
+            level: c.level,
+            temperatures_k: &c.temperatures_k,
+            ln_k: &c.ln_k,
+            lower: c.lower.as_deref().unwrap_or(&c.ln_k),
+            upper: c.upper.as_deref().unwrap_or(&c.ln_k),
+        })
+        .collect();
+    let (td, ld) = table.classic_points(ClassicMethod::Direct);
+    let (tm, lm) = table.classic_points(ClassicMethod::MassBalance);
+    let (direct_label, mb_label) = match &table.classic {
+        Some(c) => (
+            format!(
+                "classic direct ({:.0} nm, {:.0} nm)",
+                c.free_wavelength_nm, c.complex_wavelength_nm
+            ),
+            format!("classic mass balance ({:.0} nm)", c.complex_wavelength_nm),
+        ),
+        None => (String::new(), String::new()),
+    };
+    let mut points = Vec::new();
+    if !td.is_empty() {
+        points.push(LnKPoints {
+            label: &direct_label,
+            temperatures_k: &td,
+            ln_k: &ld,
+        });
+    }
+    if !tm.is_empty() {
+        points.push(LnKPoints {
+            label: &mb_label,
+            temperatures_k: &tm,
+            ln_k: &lm,
+        });
+    }
+    vant_hoff_bands("van 't Hoff plot", &bands, &points, palette)
 }
 
 // ---------------------------------------------------------------------------------------------
@@ -1327,7 +1407,6 @@ pub fn residual_map(
     let scale = if limit > 0.0 { limit } else { 1.0 };
     let x = padded_range([edge(0), edge(nw)].into_iter(), 0.0);
     let y = -0.5..(rows.len() as f64 - 0.5);
-    let xs = x.end - x.start;
     let row_label = |v: &f64| -> String {
         let r = v.round();
         if (v - r).abs() > 1e-6 || r < 0.0 || r as usize >= rows.len() {
@@ -1340,24 +1419,14 @@ pub fn residual_map(
             name.to_string()
         }
     };
-    render(PLOT, palette, |root| {
-        let axes = Axes {
-            x,
-            y,
-            x_desc: "wavelength / nm",
-            y_desc: "sample",
-            right_margin: 96,
-            y_label_area: 96,
-        };
-        let mut chart = frame(
-            PLOT,
-            root,
-            title,
-            &axes,
-            &|v| tick_text(*v, xs),
-            &row_label,
-            palette,
-        )?;
+    let axes = Axes {
+        right_margin: 96,
+        y_label_area: 96,
+        y_ticks: Some(&row_label),
+        legend: false,
+        ..Axes::new(x, y, "wavelength / nm", "sample")
+    };
+    chart_svg(PLOT, title, &axes, palette, |root, chart| {
         let rects = cells.indexed_iter().map(|((r, c), &v)| {
             let x0 = edge(cols[c].start);
             let x1 = edge(cols[c].end);
@@ -1448,7 +1517,6 @@ pub fn singular_values(
         .collect();
     let x = 0.5..(values.len() as f64 + 0.5);
     let y = with_headroom(padded_range(pts.iter().map(|p| p.1), 0.08), 2, palette);
-    let ys = y.end - y.start;
     let int_tick = |v: &f64| {
         if (v - v.round()).abs() < 1e-9 && *v >= 1.0 {
             format!("{}", v.round() as i64)
@@ -1456,31 +1524,18 @@ pub fn singular_values(
             String::new()
         }
     };
-    render(PLOT, palette, |root| {
-        let axes = Axes {
-            x,
-            y: y.clone(),
-            x_desc: "factor number",
-            y_desc: "log₁₀ (singular value / AU)",
-            right_margin: 0,
-            y_label_area: 64,
-        };
-        let mut chart = frame(
-            PLOT,
-            root,
-            title,
-            &axes,
-            &int_tick,
-            &|v| tick_text(*v, ys),
-            palette,
-        )?;
+    let axes = Axes {
+        x_ticks: Some(&int_tick),
+        ..Axes::new(x, y, "factor number", "log₁₀ (singular value / AU)")
+    };
+    chart_svg(PLOT, title, &axes, palette, |_, chart| {
         let colour = palette.category(0);
         chart
             .draw_series(LineSeries::new(pts.iter().copied(), line_style(colour, palette)))
             .map_err(draw_err(PLOT))?;
         draw_markers(
             PLOT,
-            &mut chart,
+            chart,
             &pts,
             Marker::Circle,
             colour,
@@ -1491,12 +1546,17 @@ pub fn singular_values(
             let xr = r as f64 + 0.5;
             let style = palette.category(1).to_plotters().stroke_width(2);
             chart
-                .draw_series(DashedLineSeries::new([(xr, y.start), (xr, y.end)], 6, 4, style))
+                .draw_series(DashedLineSeries::new(
+                    [(xr, axes.y.start), (xr, axes.y.end)],
+                    6,
+                    4,
+                    style,
+                ))
                 .map_err(draw_err(PLOT))?
                 .label(format!("rank {r}"))
-                .legend(move |(x, y)| PathElement::new(vec![(x, y), (x + 18, y)], style));
+                .legend(line_key(style));
         }
-        draw_legend(PLOT, &mut chart, palette)
+        Ok(())
     })
 }
 
@@ -1513,9 +1573,20 @@ pub fn singular_values_of(summary: &FactorSummary, palette: &Palette) -> Result<
     )
 }
 
+/// Where [`evolving_factors`] draws entries at the numerical zero level (windows with fewer
+/// samples than factors): one decade below the lowest value that stands more than a decade
+/// above that level, so they do not stretch the axis far below the noise. With no such gap,
+/// the lowest value itself.
+fn zero_level_floor(values: impl Iterator<Item = f64> + Clone) -> f64 {
+    let lowest = values.clone().fold(f64::INFINITY, f64::min);
+    let real = values.filter(|&v| v > lowest + 1.0).fold(f64::INFINITY, f64::min);
+    if real.is_finite() { real - 1.0 } else { lowest }
+}
+
 /// Evolving factor analysis: log₁₀ singular values of growing windows (forward, solid) and
 /// shrinking windows (backward, dashed) against the sample position in temperature order; the
-/// x tick labels give the temperature in °C.
+/// x tick labels give the temperature in °C. Entries at the numerical zero level (a window with
+/// fewer samples than factors) are drawn one decade below the lowest real singular value.
 ///
 /// `forward` and `backward` are positions × factors; `temperatures_c` gives the temperature at
 /// each position (already in the analysis order).
@@ -1549,13 +1620,15 @@ pub fn evolving_factors(
     check_2d(PLOT, "forward", forward)?;
     check_2d(PLOT, "backward", backward)?;
     let n = temperatures_c.len();
+    let floor = zero_level_floor(forward.iter().chain(backward.iter()).copied());
+    let forward = forward.mapv(|v| v.max(floor));
+    let backward = backward.mapv(|v| v.max(floor));
     let x = -0.3..(n as f64 - 0.7);
     let y = with_headroom(
         padded_range(forward.iter().chain(backward.iter()).copied(), 0.06),
         2 * forward.ncols(),
         palette,
     );
-    let ys = y.end - y.start;
     let t_tick = |v: &f64| {
         let r = v.round();
         if (v - r).abs() < 1e-9 && r >= 0.0 && (r as usize) < n {
@@ -1564,16 +1637,16 @@ pub fn evolving_factors(
             String::new()
         }
     };
-    render(PLOT, palette, |root| {
-        let axes = Axes {
+    let axes = Axes {
+        x_ticks: Some(&t_tick),
+        ..Axes::new(
             x,
             y,
-            x_desc: "temperature / °C (samples in order of temperature)",
-            y_desc: "log₁₀ (singular value / AU)",
-            right_margin: 0,
-            y_label_area: 64,
-        };
-        let mut chart = frame(PLOT, root, title, &axes, &t_tick, &|v| tick_text(*v, ys), palette)?;
+            "temperature / °C (samples in order of temperature)",
+            "log₁₀ (singular value / AU)",
+        )
+    };
+    chart_svg(PLOT, title, &axes, palette, |_, chart| {
         for k in 0..forward.ncols() {
             let colour = palette.category(k);
             let style = line_style(colour, palette);
@@ -1584,7 +1657,7 @@ pub fn evolving_factors(
                 ))
                 .map_err(draw_err(PLOT))?
                 .label(format!("forward, factor {}", k + 1))
-                .legend(move |(x, y)| PathElement::new(vec![(x, y), (x + 18, y)], style));
+                .legend(line_key(style));
             let pts: Vec<(f64, f64)> = backward
                 .column(k)
                 .iter()
@@ -1601,7 +1674,7 @@ pub fn evolving_factors(
                         + PathElement::new(vec![(11, 0), (18, 0)], style)
                 });
         }
-        draw_legend(PLOT, &mut chart, palette)
+        Ok(())
     })
 }
 
@@ -1667,6 +1740,15 @@ mod tests {
         assert_eq!(b[159].end, 1000);
         assert!(b.windows(2).all(|w| w[0].end == w[1].start));
         assert_eq!(bins(5, 160).len(), 5);
+    }
+
+    #[test]
+    fn zero_level_entries_are_lifted_to_a_decade_below_the_lowest_real_value() {
+        let v = [1.0, -2.5, -15.0, -15.0, 0.3];
+        approx::assert_abs_diff_eq!(zero_level_floor(v.iter().copied()), -3.5);
+        // no gap: nothing to lift
+        let w = [1.0, 0.5, 0.2];
+        approx::assert_abs_diff_eq!(zero_level_floor(w.iter().copied()), 0.2);
     }
 
     #[test]

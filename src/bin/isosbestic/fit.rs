@@ -39,10 +39,14 @@ enum ExpansionArg {
 #[derive(Debug, Args)]
 #[command(after_help = "Examples:\n  \
     isosbestic fit --config data/demo/fit.toml --out results/demo\n  \
-    isosbestic fit --spectra s.csv --samples t.csv --model m.toml --baseline offset --expansion water --out results\n\n\
+    isosbestic fit --spectra s.csv --samples t.csv --model m.toml --baseline offset --expansion water --out results\n  \
+    isosbestic fit --config run.toml --candidate with_dcp.toml --candidate three_species.toml --out ranked\n\n\
     A configuration file holds every option (see data/demo/fit.toml); flags given on the command\n\
     line override it. Outputs go to --out; existing outputs are kept unless --force is given,\n\
-    and inputs are never overwritten. Exit code 1 when the fit did not converge.")]
+    and inputs are never overwritten. Exit code 1 when the fit did not converge.\n\n\
+    With --candidate, every candidate model is fitted to the same data with the same settings and\n\
+    ranked with the main model by AIC (model_comparison.csv); a candidate that is the other with\n\
+    some parameters held (same species, a law that is a special case) is F-tested against it.")]
 pub struct FitArgs {
     /// Run configuration file (TOML) with data, model, preprocessing and fit settings.
     #[arg(long, value_name = "TOML")]
@@ -89,6 +93,10 @@ pub struct FitArgs {
     /// Worker threads for the bootstrap (default: all cores).
     #[arg(long, value_name = "N")]
     threads: Option<usize>,
+    /// A further candidate model file fitted to the same data and ranked with --model by AIC and
+    /// BIC, with F-tests of nested pairs (repeatable; adds to `candidates` in --config).
+    #[arg(long = "candidate", value_name = "FILE")]
+    candidates: Vec<PathBuf>,
     /// Print the report as JSON instead of a summary.
     #[arg(long)]
     json: bool,
@@ -117,6 +125,7 @@ fn config_from(args: &FitArgs) -> isosbestic::Result<FitRunConfig> {
                 model,
                 preprocess: Default::default(),
                 fit: Default::default(),
+                candidates: Vec::new(),
             }
         }
     };
@@ -153,6 +162,8 @@ fn config_from(args: &FitArgs) -> isosbestic::Result<FitRunConfig> {
     if let Some(w) = &args.window {
         config.preprocess.window = Some([w[0], w[1]]);
     }
+    // candidate models: the flags add to those of the configuration file
+    config.candidates.extend(args.candidates.iter().cloned());
     Ok(config)
 }
 
