@@ -918,6 +918,9 @@ struct SetRunConfig {
     model: Option<PathBuf>,
     preprocess: Option<PreprocessParams>,
     fit: Option<HardFitParams>,
+    /// Candidate models fitted beside the main one (relative to the set folder).
+    #[serde(default)]
+    candidates: Vec<PathBuf>,
 }
 
 /// The run configuration of a set, with every path resolved, and the extra files it depends on
@@ -956,13 +959,17 @@ fn plan(set: &DataSet, root: &Path, shared: &Shared) -> Result<(FitRunConfig, Ve
                 }
                 None => conventional(),
             };
+            let candidates: Vec<PathBuf> = c.candidates.iter().map(|p| anchored(&set.folder, p)).collect();
+            let mut depends_on = vec![path.clone()];
+            depends_on.extend(candidates.iter().cloned());
             let config = FitRunConfig {
                 data,
                 model: model(c.model)?,
                 preprocess: c.preprocess.unwrap_or_default(),
                 fit: c.fit.unwrap_or_default(),
+                candidates,
             };
-            Ok((config, vec![path.clone()]))
+            Ok((config, depends_on))
         }
         DataSetSource::Conventional => {
             let config = FitRunConfig {
@@ -970,6 +977,7 @@ fn plan(set: &DataSet, root: &Path, shared: &Shared) -> Result<(FitRunConfig, Ve
                 model: model(None)?,
                 preprocess: shared.settings.preprocess.clone(),
                 fit: shared.settings.fit.clone(),
+                candidates: Vec::new(),
             };
             Ok((config, shared.settings_file.iter().cloned().collect()))
         }
