@@ -109,8 +109,9 @@ pub use law::{
 };
 pub use model::{ComponentSpec, EquilibriumModel, Optics, Species, SpeciesRole, SpeciesSpec, ValidModel};
 pub use solver::{
-    Derivatives, RESIDUAL_TOLERANCE, SolveRoute, Speciation, SpeciationBatch, Start,
-    concentration_derivatives, speciate, speciate_all, speciate_all_into,
+    Derivatives, IONIC_STRENGTH_TOLERANCE, Medium, RESIDUAL_TOLERANCE, SolveRoute, Speciation,
+    SpeciationBatch, Start, concentration_derivatives, speciate, speciate_all, speciate_all_in_medium,
+    speciate_all_into,
 };
 
 use thiserror::Error;
@@ -258,6 +259,64 @@ pub enum SpeciationError {
     SingularJacobian {
         /// Sample id.
         sample: String,
+    },
+    /// A species' charge contradicts the charges of its components.
+    #[error(
+        "species '{species}': charge {given} differs from {from_components}, the stoichiometric sum of \
+         its components' charges (charge is conserved; correct or remove one of them)"
+    )]
+    ChargeMismatch {
+        /// The species.
+        species: String,
+        /// The charge given in the model.
+        given: i32,
+        /// Σⱼ aⱼ zⱼ over its components.
+        from_components: i32,
+    },
+    /// Activity corrections need a charge the model does not give.
+    #[error(
+        "activity corrections need the charge of every species, but '{species}' has none: give \
+         `charge` for it, or for every component it is made of"
+    )]
+    UnknownCharge {
+        /// The species (or free component).
+        species: String,
+    },
+    /// An activity coefficient could not be evaluated (e.g. a temperature outside the range of
+    /// the water properties behind A(T), B(T)).
+    #[error("sample '{sample}': activity coefficients: {source}")]
+    Activity {
+        /// Sample id.
+        sample: String,
+        /// Why.
+        source: crate::thermo::ThermoError,
+    },
+    /// Ionic strength and speciation did not reach self-consistency.
+    #[error(
+        "sample '{sample}': ionic strength did not become self-consistent with the speciation \
+         (I = {ionic_strength:e}, last change {change:e} after {iterations} iterations)"
+    )]
+    IonicStrengthNotConverged {
+        /// Sample id.
+        sample: String,
+        /// Last ionic strength used.
+        ionic_strength: f64,
+        /// Last |ΔI|.
+        change: f64,
+        /// Outer iterations used.
+        iterations: usize,
+    },
+    /// A per-sample setting of the solution medium is unusable.
+    #[error("sample '{sample}': {what} is {value}, which is not valid ({requirement})")]
+    InvalidMedium {
+        /// Sample id.
+        sample: String,
+        /// Which setting.
+        what: &'static str,
+        /// Its value.
+        value: f64,
+        /// What is required.
+        requirement: &'static str,
     },
     /// A covariance for [`FormationLaw::to_standard`] has the wrong size.
     #[error("covariance has {found} entries; the law has {free} free parameters ({free}² entries expected)")]

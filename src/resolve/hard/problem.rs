@@ -2,7 +2,9 @@
 //! thermodynamic parameters θ only (argmin [`Operator`] and [`Jacobian`]).
 
 use super::{FreeParameter, SpectraTemperature};
-use crate::speciation::{Derivatives, FormationLaw, SpeciationBatch, Start, ValidModel, speciate_all_into};
+use crate::speciation::{
+    Derivatives, FormationLaw, Medium, SpeciationBatch, Start, ValidModel, speciate_all_in_medium,
+};
 use argmin::core::{Error as ArgminError, Jacobian, Operator};
 use ndarray::{Array1, Array2, ArrayView2};
 use ndarray_linalg::{JobSvd, SVDDC};
@@ -29,6 +31,8 @@ pub(crate) struct VarproProblem<'a> {
     pub reduced: Array2<f64>,
     /// Warm-start speciation buffer.
     pub batch: Mutex<SpeciationBatch>,
+    /// Activity corrections and concentration scale of the speciation (ideal by default).
+    pub medium: Medium,
 }
 
 /// The linear design X = [diag(b)·C_abs, diag(b·x)·C_abs, diag(b·x²)·C_abs] and the pieces of
@@ -110,22 +114,24 @@ impl VarproProblem<'_> {
         }
         // Warm start from the previous θ; if that fails, cold; if that fails too, clear the cache
         // so a failed trial point cannot poison later evaluations.
-        let warm = speciate_all_into(
+        let warm = speciate_all_in_medium(
             self.model,
             lb.view(),
             self.totals.view(),
             &self.sample_ids,
             Start::Warm,
+            &self.medium,
             &mut batch,
         );
         if warm.is_err() {
             batch.free.fill(0.0);
-            if let Err(e) = speciate_all_into(
+            if let Err(e) = speciate_all_in_medium(
                 self.model,
                 lb.view(),
                 self.totals.view(),
                 &self.sample_ids,
                 Start::Cold,
+                &self.medium,
                 &mut batch,
             ) {
                 batch.free.fill(0.0);

@@ -1,0 +1,162 @@
+//! End-to-end tests of `isosbestic fit` with a density table (`--density-table`, or
+//! `density_table` in the run configuration), the molal scale (`--scale`) and activity
+//! corrections (`--activity`), run in temporary folders.
+
+use std::path::{Path, PathBuf};
+use std::process::{Command, Output};
+
+fn bin() -> Command {
+    Command::new(env!("CARGO_BIN_EXE_isosbestic"))
+}
+
+fn demo(file: &str) -> PathBuf {
+    Path::new(env!("CARGO_MANIFEST_DIR")).join("data/demo").join(file)
+}
+
+fn run(cmd: &mut Command) -> (i32, String, String) {
+    let Output {
+        status,
+        stdout,
+        stderr,
+    } = cmd.output().expect("binary runs");
+    (
+        status.code().unwrap_or(-1),
+        String::from_utf8_lossy(&stdout).into_owned(),
+        String::from_utf8_lossy(&stderr).into_owned(),
+    )
+}
+
+/// `fit` of the demo data with extra flags; returns (exit code, stderr, report JSON if any).
+fn fit_demo(out: &Path, extra: &[&str]) -> (i32, String, Option<serde_json::Value>) {
+    let (code, _, err) = run(bin()
+        .args(["fit", "--quiet", "--baseline", "offset", "--spectra"])
+        .arg(demo("spectra.csv"))
+        .arg("--samples")
+        .arg(demo("samples.csv"))
+        .arg("--model")
+        .arg(demo("model.toml"))
+        .args(extra)
+        .arg("--out")
+        .arg(out));
+    let report = std::fs::read_to_string(out.join("report.json"))
+        .ok()
+        .and_then(|t| serde_json::from_str(&t).ok());
+    (code, err, report)
+}
+
+/// The fitted value of `species`' `name` parameter.
+fn parameter(report: &serde_json::Value, species: &str, name: &str) -> f64 {
+    report["data"]["fit"]["parameters"]
+        .as_array()
+        .expect("parameters")
+        .iter()
+        .find(|p| p["parameter"]["species_name"] == species && p["parameter"]["name"] == name)
+        .and_then(|p| p["value"].as_f64())
+        .unwrap_or_else(|| panic!("no {species} {name} in {report}"))
+}
+
+/// Water densities by Kell's equation (J. Chem. Eng. Data 20 (1975) 97, Eq. 16) every 5 °C
+/// from 0 to 100 °C, as a density table file.
+fn kell_table(path: &Path) {
+    let mut text = String::from("# water, Kell (1975) Eq. 16\ntemperature_C,density_kg_m3\n");
+    for k in 0..=20 {
+        let t = 5.0 * f64::from(k);
+        let rho = isosbestic::thermo::kell_water_density_kg_m3(273.15 + t);
+        text.push_str(&format!("{t},{rho:.6}\n"));
+    }
+    std::fs::write(path, text).unwrap();
+}
+
+#[test]
+fn a_density_table_of_water_gives_the_fit_of_the_built_in_water_density() {
+    let dir = tempfile::tempdir().unwrap();
+    let table = dir.path().join("water.csv");
+    kell_table(&table);
+    let (code, err, water) = fit_demo(&dir.path().join("water"), &["--expansion", "water"]);
+    assert_eq!(code, 0, "{err}");
+    let table_arg = table.to_str().unwrap();
+    let (code, err, tabled) = fit_demo(&dir.path().join("table"), &["--density-table", table_arg]);
+    assert_eq!(code, 0, "{err}");
+    let (water, tabled) = (water.unwrap(), tabled.unwrap());
+    // the table interpolates Kell within 0.01 kg/m³ (1e-5 relative) between 10 and 90 °C (unit
+    // test in src/thermo/density.rs), far below what moves ΔH° by 1e-4 relative
+    for (species, name) in [("NiBr", "dh_ref"), ("NiBr2", "dh_ref"), ("NiBr2", "log_beta_ref")] {
+        let (a, b) = (
+            parameter(&water, species, name),
+            parameter(&tabled, species, name),
+        );
+        assert!(
+            (a - b).abs() <= 1e-4 * a.abs().max(1.0),
+            "{species} {name}: {a} vs {b}"
+        );
+    }
+    // the report records the table itself, so the run can be reproduced from it
+    let basis = &tabled["data"]["config"]["fit"]["concentrations"]["thermal_expansion"];
+    assert_eq!(basis["kind"], "table", "{basis}");
+    assert_eq!(basis["name"], "water.csv");
+
+    // the same through the run configuration file
+    let config = dir.path().join("fit.toml");
+    std::fs::write(
+        &config,
+        format!(
+            "model = {:?}\ndensity_table = {:?}\n[data]\nspectra = {{ csv = {:?} }}\nsamples = {:?}\n\
+             [fit]\nbaseline = \"offset\"\n",
+            demo("model.toml"),
+            table,
+            demo("spectra.csv"),
+            demo("samples.csv")
+        ),
+    )
+    .unwrap();
+    let out = dir.path().join("config");
+    let (code, _, err) = run(bin()
+        .args(["fit", "--quiet", "--config"])
+        .arg(&config)
+        .arg("--out")
+        .arg(&out));
+    assert_eq!(code, 0, "{err}");
+    let from_config: serde_json::Value =
+        serde_json::from_str(&std::fs::read_to_string(out.join("report.json")).unwrap()).unwrap();
+    let a = parameter(&tabled, "NiBr2", "dh_ref");
+    let b = parameter(&from_config, "NiBr2", "dh_ref");
+    assert!((a - b).abs() <= 1e-9 * a.abs(), "{a} vs {b}");
+}
+
+#[test]
+fn a_bad_density_table_exits_with_code_2_naming_file_line_and_column() {
+    let dir = tempfile::tempdir().unwrap();
+    let table = dir.path().join("brine.csv");
+    std::fs::write(
+        &table,
+        "temperature_C,density_kg_m3\n0,1070.2\n50,10x5\n100,1040\n",
+    )
+    .unwrap();
+    let (code, err, report) = fit_demo(
+        &dir.path().join("out"),
+        &["--density-table", table.to_str().unwrap()],
+    );
+    assert_eq!(code, 2, "{err}");
+    assert!(
+        err.contains("brine.csv") && err.contains("line 3") && err.contains("column 2"),
+        "{err}"
+    );
+    assert!(report.is_none());
+    // a table that does not cover the measured temperatures (demo: 5–90 °C) is refused too
+    std::fs::write(&table, "temperature_C,density_kg_m3\n20,1060\n60,1045\n").unwrap();
+    let (code, err, _) = fit_demo(
+        &dir.path().join("out2"),
+        &["--density-table", table.to_str().unwrap()],
+    );
+    assert_eq!(code, 2, "{err}");
+    assert!(
+        err.contains("brine.csv") && err.contains("no extrapolation"),
+        "{err}"
+    );
+    // --density-table is the thermal-expansion density: it cannot be combined with --expansion
+    let (code, err, _) = fit_demo(
+        &dir.path().join("out3"),
+        &["--density-table", table.to_str().unwrap(), "--expansion", "none"],
+    );
+    assert_eq!(code, 2, "{err}");
+}
