@@ -160,3 +160,190 @@ fn a_bad_density_table_exits_with_code_2_naming_file_line_and_column() {
     );
     assert_eq!(code, 2, "{err}");
 }
+
+/// A charged version of a metal–halide model: M²⁺ + X⁻ ⇌ MX⁺, M²⁺ + 2X⁻ ⇌ MX₂ (van 't Hoff).
+fn charged_model_text(lb1: f64, dh1: f64, lb2: f64, dh2: f64) -> String {
+    format!(
+        r#"components = [{{ name = "M", absorbs = true, charge = 2 }}, {{ name = "X", absorbs = false, charge = -1 }}]
+[[species]]
+name = "MX"
+stoichiometry = {{ M = 1, X = 1 }}
+absorbs = true
+law = {{ kind = "van_t_hoff", log_beta_ref = {{ value = {lb1} }}, dh_ref = {{ value = {dh1} }} }}
+[[species]]
+name = "MX2"
+stoichiometry = {{ M = 1, X = 2 }}
+absorbs = true
+law = {{ kind = "van_t_hoff", log_beta_ref = {{ value = {lb2} }}, dh_ref = {{ value = {dh2} }} }}
+"#
+    )
+}
+
+/// Noise-free data simulated with Davies activity coefficients and a 0.1 mol/L background
+/// electrolyte, written as spectra.csv and samples.csv into `dir`.
+fn simulate_with_activity(dir: &Path) {
+    use isosbestic::simulate::{
+        Band, Noise, PureSpectrum, SeriesPlan, SimulationMedium, SimulationPlan, simulate_in_medium,
+    };
+    let truth = isosbestic::speciation::EquilibriumModel::from_toml_str(&charged_model_text(
+        1.2, 12_000.0, 1.9, 30_000.0,
+    ))
+    .unwrap()
+    .check()
+    .unwrap();
+    let band = |c: f64, w: f64, h: f64| Band {
+        centre_nm: c,
+        width_nm: w,
+        height: h,
+        shift_nm_per_k: 0.0,
+    };
+    let plan = SimulationPlan {
+        seed: 1,
+        first_nm: 350.0,
+        last_nm: 800.0,
+        step_nm: 5.0,
+        temperatures_c: (0..10).map(|k| 5.0 + 9.0 * f64::from(k)).collect(),
+        path_cm: 1.0,
+        preparation_temperature_c: 25.0,
+        thermal_expansion: true,
+        noise: Noise::None,
+        offset_sd_au: 0.0,
+        slope_sd_au_per_100nm: 0.0,
+        series: [0.02, 0.1, 0.4]
+            .iter()
+            .map(|&x| SeriesPlan {
+                label: format!("X{x}"),
+                totals_m: [("M".into(), 0.01), ("X".into(), x)].into(),
+            })
+            .collect(),
+        spectra: vec![
+            PureSpectrum {
+                species: "M".into(),
+                bands: vec![band(420.0, 30.0, 6.0), band(700.0, 60.0, 2.5)],
+            },
+            PureSpectrum {
+                species: "MX".into(),
+                bands: vec![band(450.0, 35.0, 18.0), band(720.0, 55.0, 9.0)],
+            },
+            PureSpectrum {
+                species: "MX2".into(),
+                bands: vec![band(480.0, 40.0, 40.0), band(650.0, 45.0, 55.0)],
+            },
+        ],
+    };
+    let medium = SimulationMedium {
+        activity: isosbestic::thermo::ActivityCorrection::Davies(isosbestic::thermo::Davies::default()),
+        medium_ionic_strength: 0.1,
+        ..SimulationMedium::default()
+    };
+    let sim = simulate_in_medium(&truth, &plan, &medium).unwrap();
+    isosbestic::report::tables::write_spectra_table(&sim.set, &dir.join("spectra.csv")).unwrap();
+    isosbestic::report::tables::write_samples_table(&sim.set, &dir.join("samples.csv")).unwrap();
+}
+
+#[test]
+fn activity_from_the_command_line_and_the_configuration_recovers_thermodynamic_constants() {
+    let dir = tempfile::tempdir().unwrap();
+    let data = dir.path();
+    simulate_with_activity(data);
+    let model = data.join("model.toml");
+    std::fs::write(&model, charged_model_text(0.5, 0.0, 1.0, 0.0)).unwrap();
+    let fit = |out: &str, extra: &[&str]| {
+        let out = data.join(out);
+        let (code, _, err) = run(bin()
+            .args(["fit", "--quiet", "--expansion", "water", "--spectra"])
+            .arg(data.join("spectra.csv"))
+            .arg("--samples")
+            .arg(data.join("samples.csv"))
+            .arg("--model")
+            .arg(&model)
+            .args(extra)
+            .arg("--out")
+            .arg(&out));
+        assert_eq!(code, 0, "{extra:?}: {err}");
+        serde_json::from_str::<serde_json::Value>(&std::fs::read_to_string(out.join("report.json")).unwrap())
+            .unwrap()
+    };
+    let with = fit(
+        "davies",
+        &["--activity", "davies", "--medium-ionic-strength", "0.1"],
+    );
+    // truth of the simulation above; the CSV files carry the absorbances rounded, hence 1e-4
+    for (species, name, expected) in [
+        ("MX", "log_beta_ref", 1.2),
+        ("MX", "dh_ref", 12_000.0),
+        ("MX2", "log_beta_ref", 1.9),
+        ("MX2", "dh_ref", 30_000.0),
+    ] {
+        let v = parameter(&with, species, name);
+        assert!(
+            (v - expected).abs() <= 1e-4 * expected.abs(),
+            "{species} {name}: {v}"
+        );
+    }
+    assert_eq!(with["data"]["config"]["fit"]["activity"]["model"], "davies");
+    // without the correction the constants are conditional ones, clearly different
+    let without = fit("none", &["--activity", "none"]);
+    assert!((parameter(&without, "MX", "log_beta_ref") - 1.2).abs() > 0.1);
+    // the molal scale is accepted and recorded
+    let molal = fit(
+        "molal",
+        &[
+            "--activity",
+            "extended-debye-huckel",
+            "--medium-ionic-strength",
+            "0.1",
+            "--scale",
+            "molal",
+        ],
+    );
+    assert_eq!(
+        molal["data"]["config"]["fit"]["concentration_scale"]["scale"],
+        "molal"
+    );
+    assert_eq!(
+        molal["data"]["config"]["fit"]["activity"]["model"],
+        "extended_debye_huckel"
+    );
+
+    // the same keys in the run configuration
+    let config = data.join("fit.toml");
+    std::fs::write(
+        &config,
+        format!(
+            "model = {:?}\n[data]\nspectra = {{ csv = {:?} }}\nsamples = {:?}\n[fit]\n\
+             concentrations = {{ thermal_expansion = {{ kind = \"water\" }} }}\n\
+             activity = {{ model = \"davies\" }}\nmedium_ionic_strength = 0.1\n\
+             concentration_scale = {{ scale = \"molar\" }}\n",
+            model,
+            data.join("spectra.csv"),
+            data.join("samples.csv")
+        ),
+    )
+    .unwrap();
+    let out = data.join("config");
+    let (code, _, err) = run(bin()
+        .args(["fit", "--quiet", "--config"])
+        .arg(&config)
+        .arg("--out")
+        .arg(&out));
+    assert_eq!(code, 0, "{err}");
+    let from_config: serde_json::Value =
+        serde_json::from_str(&std::fs::read_to_string(out.join("report.json")).unwrap()).unwrap();
+    let (a, b) = (
+        parameter(&with, "MX2", "dh_ref"),
+        parameter(&from_config, "MX2", "dh_ref"),
+    );
+    assert!((a - b).abs() <= 1e-9 * a.abs(), "{a} vs {b}");
+}
+
+#[test]
+fn activity_with_a_model_without_charges_exits_with_code_2_naming_the_species() {
+    let dir = tempfile::tempdir().unwrap();
+    // the demo model gives no charges
+    let (code, err, _) = fit_demo(&dir.path().join("out"), &["--activity", "davies"]);
+    assert_eq!(code, 2, "{err}");
+    assert!(err.contains("'Ni'") && err.contains("charge"), "{err}");
+    let (code, err, _) = fit_demo(&dir.path().join("out2"), &["--activity", "debye"]);
+    assert_eq!(code, 2, "{err}");
+}
