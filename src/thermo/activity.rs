@@ -30,9 +30,23 @@
 //! tenths of a percent; A ∝ ε^{-3/2}).
 //!
 //! The [`ActivityModel`] trait is the extension point for further models (e.g. specific ion
-//! interaction). Iterating ionic strength and speciation to self-consistency happens where the
-//! speciation is solved; [`conditional_log_beta`] converts a thermodynamic log β to the
-//! conditional log β for given activity coefficients.
+//! interaction): a model supplies log γ(z, I, T), and optionally its slope in I (a finite
+//! difference is provided). Iterating ionic strength and speciation to self-consistency
+//! happens where the speciation is solved ([`crate::speciation::speciate_all_in_medium`]);
+//! [`conditional_log_beta`] converts a thermodynamic log β to the conditional log β for given
+//! activity coefficients.
+//!
+//! ## Limits
+//! - Both models know an ion only by its charge (and, for extended Debye–Hückel, one size
+//!   parameter): no specific interactions, no ion pairing beyond the species in the model.
+//!   Extended Debye–Hückel is meant for I up to about 0.1 mol/kg, Davies up to about 0.5;
+//!   above that (e.g. 1–3 mol/L brines) neither is reliable, and a constant ionic medium with
+//!   conditional constants (the default) is the sound choice.
+//! - γ of neutral species is 1 (no salting-out term).
+//! - A(T), B(T) are those of pure water at 0.101325 MPa, 0–100 °C, whatever the solvent: not
+//!   for other solvents or mixed solvents.
+//! - The models are written for the molal scale; with molar concentrations I in mol/L is used
+//!   in their place (a dilute approximation; choose the molal scale for hot solutions).
 
 use super::ThermoError;
 use super::density::kell_water_density_kg_m3;
