@@ -193,8 +193,8 @@ proptest! {
         lb1 in -1.0f64..7.0,
         lb2 in -1.0f64..11.0,
         log_tm in -6.0f64..-1.0,
-        log_tl in -6.0f64..0.0,
-        bg in 0.0f64..1.0,
+        log_tl in -6.0f64..0.5,
+        bg in 0.0f64..3.0,
         t_c in 1.0f64..99.0,
         davies in any::<bool>(),
     ) {

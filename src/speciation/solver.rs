@@ -749,8 +749,8 @@ impl Workspace<'_> {
     /// Solves the loaded sample (thermodynamic ln β in `ln_beta0`) with activity coefficients
     /// at a self-consistent ionic strength: an outer Newton iteration on
     /// F(I) = I_bg + ½ Σ zᵢ² cᵢ(I) − I, with the exact slope from [`Workspace::ionic_slope`],
-    /// falling back to a damped fixed-point step I ← I + ½ F when Newton's step would leave
-    /// I ≥ 0 or the map is not contracting. Returns (iterations, residual, I).
+    /// falling back to the damped fixed-point step I ← I + ½ F when Newton's step would leave
+    /// I ≥ 0 or the slope is 1. Returns (iterations, residual, I).
     #[allow(clippy::too_many_arguments)]
     fn solve_with_activity(
         &mut self,
@@ -794,11 +794,12 @@ impl Workspace<'_> {
                 self.c = c;
                 if ok { self.ionic_slope() } else { f64::NAN }
             };
+            // Newton on F(I) (F' = slope − 1); the damped step ½(I + I_map) stays ≥ 0
             let newton = i - f / (slope - 1.0);
-            i = if slope.is_finite() && slope < 0.9 && newton.is_finite() && newton >= 0.0 {
+            i = if slope.is_finite() && (slope - 1.0).abs() > 1e-6 && newton.is_finite() && newton >= 0.0 {
                 newton
             } else {
-                (i + 0.5 * f).max(0.0)
+                i + 0.5 * f
             };
             warm = Some(self.u_keep.clone());
         }
