@@ -352,6 +352,21 @@ law = { kind = "fixed", log_beta = { value = 1.0 } }
         matches!(&e, SpeciationError::Activity { sample, .. } if sample == "s1"),
         "{e}"
     );
+    // an ionic strength that is not self-consistent within the iterations allowed
+    let mut m = medium(DAVIES, vec![298.15, 298.15], vec![0.0, 0.0]);
+    m.ionic_strength_iterations = 1;
+    let e = solve(
+        &charged_model(3.0, None),
+        &array![[0.0, 0.0, 3.0], [0.0, 0.0, 3.0]],
+        &array![[0.0, 0.0], [0.05, 0.1]], // s0: nothing dissolved, nothing to iterate
+        &m,
+        Derivatives::Skip,
+    )
+    .unwrap_err();
+    assert!(
+        matches!(&e, SpeciationError::IonicStrengthNotConverged { sample, iterations: 1, .. } if sample == "s1"),
+        "{e}"
+    );
 }
 
 // ---------------------------------------------------------------------------------------------

@@ -660,9 +660,6 @@ impl<'m> Workspace<'m> {
     }
 }
 
-/// Outer iterations allowed to make the ionic strength self-consistent.
-const MAX_OUTER: usize = 100;
-
 impl Workspace<'_> {
     /// Ionic strength of the current solution: I_bg + ½ Σ zᵢ² cᵢ.
     fn ionic_strength_of(&self, background: f64) -> f64 {
@@ -758,7 +755,7 @@ impl Workspace<'_> {
         charges: &[i32],
         t_k: f64,
         background: f64,
-        tolerance: f64,
+        (tolerance, max_outer): (f64, usize),
         start: Option<&[f64]>,
         start_i: Option<f64>,
         sample: &str,
@@ -777,7 +774,7 @@ impl Workspace<'_> {
         let mut total_it = 0;
         let mut warm = start.map(<[f64]>::to_vec);
         let mut change = f64::INFINITY;
-        for outer in 0..MAX_OUTER {
+        for outer in 0..max_outer {
             self.condition(activity, charges, i, t_k, sample)?;
             let (it, rel, _) = self.solve(warm.as_deref(), sample)?;
             total_it += it;
@@ -807,7 +804,7 @@ impl Workspace<'_> {
             sample: sample.to_string(),
             ionic_strength: i,
             change,
-            iterations: MAX_OUTER,
+            iterations: max_outer,
         })
     }
 
@@ -1172,6 +1169,9 @@ pub struct Medium {
     pub kg_solvent_per_litre: Option<Vec<f64>>,
     /// Relative tolerance on |ΔI| / I at self-consistency.
     pub ionic_strength_tolerance: f64,
+    /// Outer (ionic-strength) iterations allowed per sample before
+    /// [`SpeciationError::IonicStrengthNotConverged`].
+    pub ionic_strength_iterations: usize,
 }
 
 impl Default for Medium {
@@ -1182,6 +1182,7 @@ impl Default for Medium {
             background_ionic_strength: Vec::new(),
             kg_solvent_per_litre: None,
             ionic_strength_tolerance: IONIC_STRENGTH_TOLERANCE,
+            ionic_strength_iterations: 100,
         }
     }
 }
@@ -1364,7 +1365,7 @@ pub fn speciate_all_in_medium<S: AsRef<str>>(
                 &charges,
                 t_k,
                 background / f,
-                tolerance,
+                (tolerance, medium.ionic_strength_iterations),
                 warm,
                 start_i,
                 id,
