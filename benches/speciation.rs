@@ -36,6 +36,7 @@ fn model(n: usize) -> ValidModel {
             law: Law::Fixed(FixedLaw {
                 log_beta: Parameter::free(0.0),
             }),
+            charge: None,
         })
         .collect();
     let comp = |n: &str| ComponentSpec {
@@ -43,6 +44,7 @@ fn model(n: usize) -> ValidModel {
         optics: Optics::Absorbing,
         known_spectrum: None,
         max_absorptivity: None,
+        charge: None,
     };
     EquilibriumModel {
         components: vec![comp("M"), comp("L")],

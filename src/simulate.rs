@@ -16,8 +16,11 @@
 //! the same data on every platform.
 
 use crate::data::{Sample, SpectraSet, ZERO_CELSIUS_K};
-use crate::speciation::{Derivatives, Optics, ValidModel, speciate_all};
+use crate::speciation::{
+    Derivatives, Medium, Optics, SpeciationBatch, Start, ValidModel, speciate_all_in_medium,
+};
 use crate::testing::{gaussian_band, rng};
+use crate::thermo::{ActivityCorrection, ConcentrationScale, SolventDensity};
 use ndarray::{Array1, Array2};
 use rand_distr::{Distribution, Normal};
 use serde::{Deserialize, Serialize};
@@ -148,6 +151,20 @@ fn twenty_five() -> f64 {
     25.0
 }
 
+/// The solution medium of a simulation (ideal and molar by default, as in [`simulate`]): the
+/// same settings as the global fit's `activity`, `medium_ionic_strength` and
+/// `concentration_scale` (molal conversion with the density of water, Kell 1975).
+#[derive(Debug, Clone, Copy, PartialEq, Default, Serialize, Deserialize)]
+#[serde(default, deny_unknown_fields)]
+pub struct SimulationMedium {
+    /// Activity corrections (the model's log β are then thermodynamic constants).
+    pub activity: ActivityCorrection,
+    /// Ionic strength of the inert background electrolyte, mol/L as prepared.
+    pub medium_ionic_strength: f64,
+    /// Concentration scale of the model's constants.
+    pub concentration_scale: ConcentrationScale,
+}
+
 /// A simulated data set and the truth behind it.
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
 pub struct Simulation {
@@ -243,7 +260,31 @@ fn check(plan: &SimulationPlan) -> Result<(), SimulationError> {
 /// # Ok::<(), Box<dyn std::error::Error>>(())
 /// ```
 pub fn simulate(model: &ValidModel, plan: &SimulationPlan) -> Result<Simulation, SimulationError> {
+    simulate_in_medium(model, plan, &SimulationMedium::default())
+}
+
+/// As [`simulate`], with activity corrections, a background electrolyte and/or the molal scale
+/// (see [`SimulationMedium`] and [`crate::speciation::Medium`]).
+///
+/// # Errors
+/// As [`simulate`]; also a negative `medium_ionic_strength`, a species without a charge when
+/// activity corrections are on, and a temperature outside 0–100 °C (water properties) for
+/// activity corrections or the molal scale.
+pub fn simulate_in_medium(
+    model: &ValidModel,
+    plan: &SimulationPlan,
+    medium: &SimulationMedium,
+) -> Result<Simulation, SimulationError> {
     check(plan)?;
+    if !(medium.medium_ionic_strength.is_finite() && medium.medium_ionic_strength >= 0.0) {
+        return Err(SimulationError::Settings {
+            field: "medium_ionic_strength".into(),
+            reason: format!(
+                "{} is not a non-negative ionic strength",
+                medium.medium_ionic_strength
+            ),
+        });
+    }
     let n_wl = ((plan.last_nm - plan.first_nm) / plan.step_nm + 1e-9).floor() as usize + 1;
     let wl: Vec<f64> = (0..n_wl)
         .map(|j| plan.first_nm + plan.step_nm * j as f64)
@@ -283,6 +324,7 @@ pub fn simulate(model: &ValidModel, plan: &SimulationPlan) -> Result<Simulation,
     };
     let mut samples = Vec::new();
     let mut totals = Vec::new();
+    let mut factors = Vec::new();
     let t_prep_k = plan.preparation_temperature_c + ZERO_CELSIUS_K;
     for s in &plan.series {
         for &t_c in &plan.temperatures_c {
@@ -316,6 +358,7 @@ pub fn simulate(model: &ValidModel, plan: &SimulationPlan) -> Result<Simulation,
                 })?;
             totals.push(row);
             samples.push(sample);
+            factors.push(factor);
         }
     }
     let ns = samples.len();
@@ -324,7 +367,32 @@ pub fn simulate(model: &ValidModel, plan: &SimulationPlan) -> Result<Simulation,
     let temps: Vec<f64> = samples.iter().map(|s| s.temperature_k).collect();
     let lb = model.log10_betas(&temps);
     let ids: Vec<String> = samples.iter().map(|s| s.id.clone()).collect();
-    let batch = speciate_all(model, lb.view(), totals.view(), &ids, Derivatives::Skip)?;
+    let kg_solvent_per_litre = match medium.concentration_scale {
+        ConcentrationScale::Molar => None,
+        scale => Some(
+            temps
+                .iter()
+                .map(|&t| Ok(1.0 / scale.from_molar(1.0, SolventDensity::Water.density_kg_m3(t)?)?))
+                .collect::<Result<Vec<f64>, crate::thermo::ThermoError>>()?,
+        ),
+    };
+    let speciation_medium = Medium {
+        activity: medium.activity,
+        temperatures_k: temps.clone(),
+        background_ionic_strength: factors.iter().map(|f| f * medium.medium_ionic_strength).collect(),
+        kg_solvent_per_litre,
+        ..Medium::default()
+    };
+    let mut batch = SpeciationBatch::new(model, ns, Derivatives::Skip);
+    speciate_all_in_medium(
+        model,
+        lb.view(),
+        totals.view(),
+        &ids,
+        Start::Cold,
+        &speciation_medium,
+        &mut batch,
+    )?;
     let c = batch.concentrations;
     let mut g = rng(plan.seed);
     let std_normal = Normal::new(0.0, 1.0).map_err(|e| SimulationError::Spectra(e.to_string()))?;

@@ -20,6 +20,7 @@ fn component(name: &str, optics: Optics) -> ComponentSpec {
         optics,
         known_spectrum: None,
         max_absorptivity: None,
+        charge: None,
     }
 }
 
@@ -33,6 +34,7 @@ fn formed(name: &str, stoich: &[(&str, i32)], log_beta: f64) -> SpeciesSpec {
         law: Law::Fixed(FixedLaw {
             log_beta: Parameter::free(log_beta),
         }),
+        charge: None,
     }
 }
 

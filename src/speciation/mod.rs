@@ -8,7 +8,8 @@
 //! `<component>_M`) and n_s species with integer stoichiometry A (species × components). The
 //! free components are species with unit rows and β = 1; they are added automatically (see
 //! [`EquilibriumModel::check`]), so a model file lists only the formed species. Mass action and
-//! mass balance (molar concentrations, constant ionic medium, conditional constants):
+//! mass balance (molar concentrations, constant ionic medium, conditional constants; see
+//! below for activity corrections and the molal scale):
 //!
 //! ```text
 //! cᵢ = βᵢ · Πⱼ xⱼ^aᵢⱼ                       (i = 1 … n_s)
@@ -49,6 +50,41 @@
 //! ([`concentration_derivatives`], [`Derivatives::LogBeta`]). Chain with
 //! [`FormationLaw::log10_beta_gradient_with`] for the law parameters.
 //!
+//! ## Activity corrections and the molal scale ([`speciate_all_in_medium`], [`Medium`])
+//! **Off by default.** Without them the model describes a constant ionic medium: the log β are
+//! *conditional* constants, valid for the medium the data were measured in (the usual design,
+//! with an inert background electrolyte in excess). With an activity model
+//! ([`crate::thermo::ActivityCorrection`]: Davies, extended Debye–Hückel; the
+//! [`crate::thermo::ActivityModel`] trait admits others) the log β are thermodynamic
+//! (infinite-dilution) constants, and each sample's speciation is solved at a self-consistent
+//! ionic strength:
+//!
+//! ```text
+//! I = I_bg + ½ Σᵢ cᵢ zᵢ²
+//! log βᵢ,c(I) = log βᵢ + Σⱼ aᵢⱼ log γⱼ(I, T) − log γᵢ(I, T)
+//! cᵢ = βᵢ,c(I) Πⱼ xⱼ^aᵢⱼ,   Σᵢ aᵢⱼ cᵢ = Tⱼ
+//! ```
+//!
+//! I is found by Newton's method on F(I) = I_bg + ½ Σ zᵢ² cᵢ(I) − I, each evaluation a
+//! mass-balance solve warm-started from the last, with the exact slope dF/dI from implicit
+//! differentiation (a damped fixed-point step I ← I + ½F when Newton's step is not usable),
+//! until |ΔI| ≤ [`IONIC_STRENGTH_TOLERANCE`]·I; otherwise
+//! [`SpeciationError::IonicStrengthNotConverged`] names the sample. The derivatives
+//! ∂c/∂log β are exact for the coupled system (mass balance and the ionic-strength equation;
+//! see [`speciate_all_in_medium`]), so the global fit keeps its exact Jacobian.
+//!
+//! Every species then needs a charge z: `charge` on each component, from which a formed
+//! species' charge follows as Σⱼ aᵢⱼ zⱼ (charge is conserved); a species may state its
+//! `charge` too, which must agree ([`SpeciationError::ChargeMismatch`]), or which supplies it
+//! when some component has none. Inert ions outside the model enter through the background
+//! ionic strength I_bg — or as components with charges and totals, with no species formed.
+//!
+//! On the molal scale the totals are divided by the kg of solvent per litre of solution, the
+//! speciation runs in mol/kg (β are molal constants, I is molal), and concentrations and
+//! derivatives come back in mol/L for Beer–Lambert. On the molar scale the activity models are
+//! used with I in mol/L, the usual dilute approximation (mol/L ≈ mol/kg within 0.3 % for water
+//! at 25 °C, 4 % at 95 °C).
+//!
 //! ## A model file (TOML; JSON has the same structure)
 //! An invented system: a metal M binding a halide X as MX, MX₂, MX₃; only M-containing species
 //! absorb; MX₃ is a weak absorber with an ε ceiling.
@@ -59,10 +95,12 @@
 //! [[components]]
 //! name = "M"
 //! absorbs = true
+//! charge = 2        # optional; needed only for activity corrections
 //!
 //! [[components]]
 //! name = "X"
 //! absorbs = false
+//! charge = -1
 //!
 //! [[species]]
 //! name = "MX"
@@ -94,6 +132,7 @@
 //! assert_eq!(model.n_species(), 5); // M, X, MX, MX2, MX3
 //! assert_eq!(model.species()[1].optics, Optics::Transparent);
 //! assert_eq!(model.species()[4].law.parameter_names(), ["log_beta_ref", "dh_ref", "dcp"]);
+//! assert_eq!(model.charges()?, vec![2, -1, 1, 0, -1]); // MX⁺, MX₂, MX₃⁻ from the components
 //! model.check_totals(&["M".to_string(), "X".to_string()])?;
 //! assert!(model.check_totals(&["M".to_string()]).is_err());
 //! # Ok::<(), isosbestic::speciation::SpeciationError>(())
@@ -109,8 +148,9 @@ pub use law::{
 };
 pub use model::{ComponentSpec, EquilibriumModel, Optics, Species, SpeciesRole, SpeciesSpec, ValidModel};
 pub use solver::{
-    Derivatives, RESIDUAL_TOLERANCE, SolveRoute, Speciation, SpeciationBatch, Start,
-    concentration_derivatives, speciate, speciate_all, speciate_all_into,
+    Derivatives, IONIC_STRENGTH_TOLERANCE, Medium, RESIDUAL_TOLERANCE, SolveRoute, Speciation,
+    SpeciationBatch, Start, concentration_derivatives, speciate, speciate_all, speciate_all_in_medium,
+    speciate_all_into,
 };
 
 use thiserror::Error;
@@ -258,6 +298,64 @@ pub enum SpeciationError {
     SingularJacobian {
         /// Sample id.
         sample: String,
+    },
+    /// A species' charge contradicts the charges of its components.
+    #[error(
+        "species '{species}': charge {given} differs from {from_components}, the stoichiometric sum of \
+         its components' charges (charge is conserved; correct or remove one of them)"
+    )]
+    ChargeMismatch {
+        /// The species.
+        species: String,
+        /// The charge given in the model.
+        given: i32,
+        /// Σⱼ aⱼ zⱼ over its components.
+        from_components: i32,
+    },
+    /// Activity corrections need a charge the model does not give.
+    #[error(
+        "activity corrections need the charge of every species, but '{species}' has none: give \
+         `charge` for it, or for every component it is made of"
+    )]
+    UnknownCharge {
+        /// The species (or free component).
+        species: String,
+    },
+    /// An activity coefficient could not be evaluated (e.g. a temperature outside the range of
+    /// the water properties behind A(T), B(T)).
+    #[error("sample '{sample}': activity coefficients: {source}")]
+    Activity {
+        /// Sample id.
+        sample: String,
+        /// Why.
+        source: crate::thermo::ThermoError,
+    },
+    /// Ionic strength and speciation did not reach self-consistency.
+    #[error(
+        "sample '{sample}': ionic strength did not become self-consistent with the speciation \
+         (I = {ionic_strength:e}, last change {change:e} after {iterations} iterations)"
+    )]
+    IonicStrengthNotConverged {
+        /// Sample id.
+        sample: String,
+        /// Last ionic strength used.
+        ionic_strength: f64,
+        /// Last |ΔI|.
+        change: f64,
+        /// Outer iterations used.
+        iterations: usize,
+    },
+    /// A per-sample setting of the solution medium is unusable.
+    #[error("sample '{sample}': {what} is {value}, which is not valid ({requirement})")]
+    InvalidMedium {
+        /// Sample id.
+        sample: String,
+        /// Which setting.
+        what: &'static str,
+        /// Its value.
+        value: f64,
+        /// What is required.
+        requirement: &'static str,
     },
     /// A covariance for [`FormationLaw::to_standard`] has the wrong size.
     #[error("covariance has {found} entries; the law has {free} free parameters ({free}² entries expected)")]

@@ -49,6 +49,10 @@ pub struct ComponentSpec {
     /// Optional ceiling on ε, L mol⁻¹ cm⁻¹, for a weak absorber (must be > 0).
     #[serde(default, skip_serializing_if = "Option::is_none")]
     pub max_absorptivity: Option<f64>,
+    /// Optional charge number z of the free component (e.g. 2 for M²⁺, −1 for X⁻). Needed only
+    /// for activity corrections.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub charge: Option<i32>,
 }
 
 /// A formed species as written in a model file.
@@ -71,6 +75,11 @@ pub struct SpeciesSpec {
     pub max_absorptivity: Option<f64>,
     /// How log₁₀ β of formation from the free components depends on temperature.
     pub law: Law,
+    /// Optional charge number z. By default the stoichiometric sum Σⱼ aⱼ zⱼ of its components'
+    /// charges (charge is conserved); a value given here must equal that sum when every
+    /// component's charge is known, and is needed when some is not.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub charge: Option<i32>,
 }
 
 /// An equilibrium model as written in a TOML or JSON file: components and formed species.
@@ -114,6 +123,9 @@ pub struct Species {
     pub law: Law,
     /// Free component or formed species.
     pub role: SpeciesRole,
+    /// Charge number z: as given, or the stoichiometric sum of the components' charges; `None`
+    /// when neither is known.
+    pub charge: Option<i32>,
 }
 
 /// A checked equilibrium model: the solver and the fit take only this.
@@ -208,7 +220,9 @@ impl EquilibriumModel {
     ///   component (e.g. `{ M = 1 }`): their concentrations would stay in the fixed ratio
     ///   β₁/β₂ in every sample, so only β₁ + β₂ could ever be determined;
     /// - a non-finite law parameter or a non-positive reference temperature;
-    /// - a `max_absorptivity` that is not a positive finite number.
+    /// - a `max_absorptivity` that is not a positive finite number;
+    /// - a species `charge` that differs from the stoichiometric sum of its components' charges
+    ///   ([`SpeciationError::ChargeMismatch`]; charge is conserved in every formation reaction).
     ///
     /// NOT rejected, because mass action makes them distinct: a species whose stoichiometry is
     /// a sum or multiple of others' (ML₂ beside ML and L; the dimer M₂ beside M; M₂L₂ beside ML).
@@ -251,6 +265,7 @@ impl EquilibriumModel {
                 max_absorptivity: comp.max_absorptivity,
                 law: Law::fixed_log_beta(0.0),
                 role: SpeciesRole::FreeComponent(j),
+                charge: comp.charge,
             });
         }
         for (k, sp) in self.species.iter().enumerate() {
@@ -288,6 +303,23 @@ impl EquilibriumModel {
             }
             check_optics(&sp.name, sp.max_absorptivity)?;
             check_law(&sp.name, &sp.law)?;
+            // charge is conserved: z = Σⱼ aⱼ zⱼ when every component in the species has a charge
+            let from_components = row
+                .iter()
+                .zip(&self.components)
+                .filter(|(a, _)| **a != 0)
+                .map(|(a, c)| c.charge.map(|z| a * z))
+                .sum::<Option<i32>>();
+            let charge = match (sp.charge, from_components) {
+                (Some(given), Some(sum)) if given != sum => {
+                    return Err(SpeciationError::ChargeMismatch {
+                        species: sp.name.clone(),
+                        given,
+                        from_components: sum,
+                    });
+                }
+                (given, sum) => given.or(sum),
+            };
             species.push(Species {
                 name: sp.name.clone(),
                 stoichiometry: row,
@@ -296,6 +328,7 @@ impl EquilibriumModel {
                 max_absorptivity: sp.max_absorptivity,
                 law: sp.law,
                 role: SpeciesRole::Formed,
+                charge,
             });
         }
         let stoichiometry: Vec<f64> = species
@@ -339,6 +372,37 @@ impl ValidModel {
     /// All species: free components first, then formed species.
     pub fn species(&self) -> &[Species] {
         &self.species
+    }
+
+    /// The charge number z of every species (model order), as needed by activity corrections.
+    ///
+    /// # Errors
+    /// [`SpeciationError::UnknownCharge`] naming the first species whose charge is neither given
+    /// nor implied by its components' charges.
+    ///
+    /// # Examples
+    /// ```
+    /// use isosbestic::speciation::EquilibriumModel;
+    /// let model = EquilibriumModel::from_toml_str(r#"
+    ///     components = [{ name = "M", absorbs = true, charge = 2 }, { name = "X", absorbs = false, charge = -1 }]
+    ///     [[species]]
+    ///     name = "MX2"
+    ///     stoichiometry = { M = 1, X = 2 }
+    ///     absorbs = true
+    ///     law = { kind = "fixed", log_beta = { value = 2.0 } }
+    /// "#)?.check()?;
+    /// assert_eq!(model.charges()?, vec![2, -1, 0]); // MX2 is neutral: 2 + 2·(−1)
+    /// # Ok::<(), isosbestic::speciation::SpeciationError>(())
+    /// ```
+    pub fn charges(&self) -> Result<Vec<i32>, SpeciationError> {
+        self.species
+            .iter()
+            .map(|s| {
+                s.charge.ok_or_else(|| SpeciationError::UnknownCharge {
+                    species: s.name.clone(),
+                })
+            })
+            .collect()
     }
 
     /// Index of the species called `name`.

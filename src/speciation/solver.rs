@@ -6,6 +6,7 @@
 
 use super::SpeciationError;
 use super::model::ValidModel;
+use crate::thermo::{ActivityCorrection, ActivityModel};
 use ndarray::{Array2, Array3, ArrayView2};
 use serde::{Deserialize, Serialize};
 use std::f64::consts::LN_10;
@@ -80,7 +81,12 @@ pub struct SpeciationBatch {
     /// Relative mass-balance residual per sample.
     pub residuals: Vec<f64>,
     /// ∂cᵢ/∂ log₁₀ βₖ as `[sample, i, k]` (samples × species × species), when asked for.
+    /// With activity corrections ([`speciate_all_in_medium`]) βₖ is the thermodynamic
+    /// constant and the derivative includes the change of the ionic strength.
     pub derivatives: Option<Array3<f64>>,
+    /// Self-consistent ionic strength I of each sample (on the speciation's scale: mol/L, or
+    /// mol/kg on the molal scale) when activity corrections are on; NaN otherwise.
+    pub ionic_strength: Vec<f64>,
 }
 
 impl SpeciationBatch {
@@ -92,6 +98,7 @@ impl SpeciationBatch {
             free: Array2::zeros((n_samples, model.n_components())),
             iterations: vec![0; n_samples],
             residuals: vec![0.0; n_samples],
+            ionic_strength: vec![f64::NAN; n_samples],
             derivatives: match derivatives {
                 Derivatives::Skip => None,
                 Derivatives::LogBeta => Some(Array3::zeros((n_samples, nsp, nsp))),
@@ -123,6 +130,18 @@ struct Workspace<'m> {
     d: Vec<f64>,
     rhs: Vec<f64>,
     order: Vec<usize>,
+    /// Thermodynamic ln β (activity corrections turn `ln_beta` into conditional values).
+    ln_beta0: Vec<f64>,
+    /// ψᵢ = ∂ ln βᵢ(conditional)/∂I.
+    psi: Vec<f64>,
+    /// zᵢ² per species.
+    z2: Vec<f64>,
+    /// log₁₀ γ and its slope per species.
+    lg: Vec<f64>,
+    dlg: Vec<f64>,
+    /// w = H⁻¹ Aᵀ diag(c) ψ, and a copy of u.
+    w: Vec<f64>,
+    u_keep: Vec<f64>,
 }
 
 impl<'m> Workspace<'m> {
@@ -150,6 +169,13 @@ impl<'m> Workspace<'m> {
             d: vec![0.0; nc],
             rhs: vec![0.0; nc],
             order: Vec::with_capacity(nc),
+            ln_beta0: vec![0.0; nsp],
+            psi: vec![0.0; nsp],
+            z2: vec![0.0; nsp],
+            lg: vec![0.0; nsp],
+            dlg: vec![0.0; nsp],
+            w: vec![0.0; nc],
+            u_keep: vec![0.0; nc],
         }
     }
 
@@ -634,6 +660,225 @@ impl<'m> Workspace<'m> {
     }
 }
 
+impl Workspace<'_> {
+    /// Ionic strength of the current solution: I_bg + ½ Σ zᵢ² cᵢ.
+    fn ionic_strength_of(&self, background: f64) -> f64 {
+        background + 0.5 * self.c.iter().zip(&self.z2).map(|(c, z2)| c * z2).sum::<f64>()
+    }
+
+    /// Conditional ln β at ionic strength `i` (from `ln_beta0`), and ψ = ∂ ln β_cond/∂I:
+    /// ln βᵢ,c = ln βᵢ + ln 10 (Σⱼ aᵢⱼ log γⱼ − log γᵢ).
+    fn condition(
+        &mut self,
+        activity: &ActivityCorrection,
+        charges: &[i32],
+        i: f64,
+        t_k: f64,
+        sample: &str,
+    ) -> Result<(), SpeciationError> {
+        let err = |source| SpeciationError::Activity {
+            sample: sample.to_string(),
+            source,
+        };
+        for k in 0..self.nsp {
+            self.lg[k] = activity.log10_gamma(charges[k], i, t_k).map_err(err)?;
+            self.dlg[k] = activity
+                .d_log10_gamma_d_ionic_strength(charges[k], i, t_k)
+                .map_err(err)?;
+        }
+        for k in 0..self.nsp {
+            if k < self.nc {
+                // a free component: its own γ cancels (β = 1 on every scale)
+                self.ln_beta[k] = self.ln_beta0[k];
+                self.psi[k] = 0.0;
+                continue;
+            }
+            let row = &self.a[k * self.nc..(k + 1) * self.nc];
+            let (mut s, mut ds) = (-self.lg[k], -self.dlg[k]);
+            for (j, &akj) in row.iter().enumerate() {
+                s += akj * self.lg[j];
+                ds += akj * self.dlg[j];
+            }
+            self.ln_beta[k] = self.ln_beta0[k] + LN_10 * s;
+            self.psi[k] = LN_10 * ds;
+        }
+        Ok(())
+    }
+
+    /// At the current solution (H factorised at c): w = H⁻¹ q with q = Aᵀ diag(c) ψ, and
+    /// dI_map/dI = s − p·w, where p = ½ Aᵀ diag(c) z², s = ½ Σ zᵢ² cᵢ ψᵢ: the slope of the
+    /// ionic strength the speciation gives with respect to the ionic strength assumed.
+    fn ionic_slope(&mut self) -> f64 {
+        let nc = self.nc;
+        let (mut s, mut pw) = (0.0, 0.0);
+        for j in 0..nc {
+            self.w[j] = 0.0;
+        }
+        for i in 0..self.nsp {
+            let ci = self.c[i];
+            if ci <= 0.0 {
+                continue;
+            }
+            s += 0.5 * self.z2[i] * ci * self.psi[i];
+            for j in 0..nc {
+                if self.active_c[j] {
+                    self.w[j] += self.a[i * nc + j] * ci * self.psi[i];
+                }
+            }
+        }
+        let mut w = std::mem::take(&mut self.w);
+        self.solve_factored(&mut w);
+        for j in 0..nc {
+            if !self.active_c[j] {
+                w[j] = 0.0;
+                continue;
+            }
+            let mut pj = 0.0;
+            for i in 0..self.nsp {
+                pj += 0.5 * self.a[i * nc + j] * self.c[i] * self.z2[i];
+            }
+            pw += pj * w[j];
+        }
+        self.w = w;
+        s - pw
+    }
+
+    /// Solves the loaded sample (thermodynamic ln β in `ln_beta0`) with activity coefficients
+    /// at a self-consistent ionic strength: an outer Newton iteration on
+    /// F(I) = I_bg + ½ Σ zᵢ² cᵢ(I) − I, with the exact slope from [`Workspace::ionic_slope`],
+    /// falling back to the damped fixed-point step I ← I + ½ F when Newton's step would leave
+    /// I ≥ 0 or the slope is 1. Returns (iterations, residual, I).
+    #[allow(clippy::too_many_arguments)]
+    fn solve_with_activity(
+        &mut self,
+        activity: &ActivityCorrection,
+        charges: &[i32],
+        t_k: f64,
+        background: f64,
+        (tolerance, max_outer): (f64, usize),
+        start: Option<&[f64]>,
+        start_i: Option<f64>,
+        sample: &str,
+    ) -> Result<(usize, f64, f64), SpeciationError> {
+        let mut i = match start_i {
+            Some(v) if v.is_finite() && v >= 0.0 => v,
+            _ => {
+                // free components at their totals
+                background
+                    + 0.5
+                        * (0..self.nc)
+                            .map(|j| self.totals[j].abs() * self.z2[j])
+                            .sum::<f64>()
+            }
+        };
+        let mut total_it = 0;
+        let mut warm = start.map(<[f64]>::to_vec);
+        let mut change = f64::INFINITY;
+        for outer in 0..max_outer {
+            self.condition(activity, charges, i, t_k, sample)?;
+            let (it, rel, _) = self.solve(warm.as_deref(), sample)?;
+            total_it += it;
+            let i_map = self.ionic_strength_of(background);
+            let f = i_map - i;
+            change = f.abs();
+            if change <= tolerance * i_map.max(i).max(f64::MIN_POSITIVE) {
+                return Ok((total_it + outer, rel, i));
+            }
+            self.u_keep.copy_from_slice(&self.u);
+            let slope = {
+                let c = std::mem::take(&mut self.c);
+                let ok = self.factor_jacobian(&c);
+                self.c = c;
+                if ok { self.ionic_slope() } else { f64::NAN }
+            };
+            // Newton on F(I) (F' = slope − 1); the damped step ½(I + I_map) stays ≥ 0
+            let newton = i - f / (slope - 1.0);
+            i = if slope.is_finite() && (slope - 1.0).abs() > 1e-6 && newton.is_finite() && newton >= 0.0 {
+                newton
+            } else {
+                i + 0.5 * f
+            };
+            warm = Some(self.u_keep.clone());
+        }
+        Err(SpeciationError::IonicStrengthNotConverged {
+            sample: sample.to_string(),
+            ionic_strength: i,
+            change,
+            iterations: max_outer,
+        })
+    }
+
+    /// ∂cᵢ/∂log₁₀βₖ (thermodynamic β) with activity corrections, by implicit differentiation
+    /// of the coupled system g(u, I) = Aᵀc − T = 0, I − I_bg − ½ Σ zᵢ² cᵢ = 0:
+    ///
+    /// ```text
+    /// [ H    q   ] [∂u/∂ln βₖ]   [ −cₖ aₖ   ]
+    /// [ −pᵀ  1−s ] [∂I/∂ln βₖ] = [ ½ zₖ² cₖ ]
+    /// ```
+    ///
+    /// solved by the Schur complement: u₀ = −H⁻¹cₖaₖ, ∂I = (½zₖ²cₖ + p·u₀)/(1 − s + p·w),
+    /// ∂u = u₀ − w ∂I, ∂cᵢ = cᵢ(δᵢₖ + aᵢ·∂u + ψᵢ ∂I).
+    fn derivatives_with_activity_into(
+        &mut self,
+        out: &mut [f64],
+        sample: &str,
+    ) -> Result<(), SpeciationError> {
+        let (nc, nsp) = (self.nc, self.nsp);
+        out.iter_mut().for_each(|v| *v = 0.0);
+        let c = std::mem::take(&mut self.c);
+        let ok = self.factor_jacobian(&c);
+        self.c = c;
+        if !ok {
+            return Err(SpeciationError::SingularJacobian {
+                sample: sample.to_string(),
+            });
+        }
+        let slope = self.ionic_slope();
+        let den = 1.0 - slope;
+        let mut p = vec![0.0; nc];
+        for j in 0..nc {
+            if self.active_c[j] {
+                for i in 0..nsp {
+                    p[j] += 0.5 * self.a[i * nc + j] * self.c[i] * self.z2[i];
+                }
+            }
+        }
+        let mut rhs = std::mem::take(&mut self.rhs);
+        for k in 0..nsp {
+            let ck = self.c[k];
+            if !self.active_s[k] || ck <= 0.0 {
+                continue;
+            }
+            for j in 0..nc {
+                rhs[j] = if self.active_c[j] {
+                    -ck * self.a[k * nc + j]
+                } else {
+                    0.0
+                };
+            }
+            self.solve_factored(&mut rhs);
+            let pu: f64 = p.iter().zip(rhs.iter()).map(|(a, b)| a * b).sum();
+            let di = (0.5 * self.z2[k] * ck + pu) / den;
+            for j in 0..nc {
+                rhs[j] -= self.w[j] * di;
+            }
+            for i in 0..nsp {
+                if !self.active_s[i] {
+                    continue;
+                }
+                let mut s = if i == k { 1.0 } else { 0.0 };
+                for j in 0..nc {
+                    s += self.a[i * nc + j] * rhs[j];
+                }
+                s += self.psi[i] * di;
+                out[i * nsp + k] = LN_10 * self.c[i] * s;
+            }
+        }
+        self.rhs = rhs;
+        Ok(())
+    }
+}
+
 /// Cholesky of (D H D + μI) into the lower triangle of `l`; false if a pivot is not positive.
 fn cholesky_scaled(h: &[f64], d: &[f64], n: usize, mu: f64, l: &mut [f64]) -> bool {
     for j in 0..n {
@@ -845,6 +1090,7 @@ pub fn speciate_all_into<S: AsRef<str>>(
     check_len("batch free columns", nc, batch.free.ncols())?;
     batch.iterations.resize(ns, 0);
     batch.residuals.resize(ns, 0.0);
+    batch.ionic_strength.resize(ns, f64::NAN);
     if let Some(d) = &batch.derivatives {
         check_len("batch derivatives", ns * nsp * nsp, d.len())?;
     }
@@ -881,6 +1127,298 @@ pub fn speciate_all_into<S: AsRef<str>>(
             ws.derivatives_into(&mut dbuf, id)?;
             for (o, &v) in d.index_axis_mut(ndarray::Axis(0), s).iter_mut().zip(&dbuf) {
                 *o = v;
+            }
+        }
+    }
+    Ok(())
+}
+
+/// Default relative tolerance on the self-consistency of the ionic strength, |ΔI| / I.
+pub const IONIC_STRENGTH_TOLERANCE: f64 = 1e-10;
+
+/// The solution medium of each sample of a batch: activity corrections, the inert background
+/// electrolyte, and the concentration scale of the constants. [`Medium::default`] is the ideal
+/// medium (no activity corrections, molar scale) of [`speciate_all_into`].
+///
+/// - **Activity** ([`Medium::activity`], off by default): with the charges zᵢ of every species
+///   (see [`ValidModel::charges`]), the ionic strength I = I_bg + ½ Σ cᵢ zᵢ² is iterated with
+///   the speciation to self-consistency, each pass solving the mass balance with the
+///   conditional constants log βᵢ,c = log βᵢ + Σⱼ aᵢⱼ log γⱼ(I) − log γᵢ(I) (γ from the
+///   activity model at I and the sample's temperature). The log β given are then
+///   thermodynamic (infinite-dilution) constants.
+/// - **Background electrolyte** ([`Medium::background_ionic_strength`]): the ionic strength of
+///   inert ions not in the model (e.g. a LiClO₄ medium), per sample, in the unit of the totals;
+///   it is converted with them to the molal scale.
+/// - **Scale** ([`Medium::kg_solvent_per_litre`]): on the molal scale the totals (mol/L) are
+///   divided by the kg of solvent per litre of solution, the speciation is solved in mol/kg
+///   (so β are molal constants and I is molal), and concentrations and derivatives are
+///   multiplied back to mol/L for Beer–Lambert.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[serde(default, deny_unknown_fields)]
+pub struct Medium {
+    /// The activity model ([`ActivityCorrection::None`]: constant ionic medium, conditional
+    /// constants).
+    pub activity: ActivityCorrection,
+    /// Temperature of each sample, K (needed with activity corrections).
+    pub temperatures_k: Vec<f64>,
+    /// Ionic strength of the inert background electrolyte per sample, in the unit of the
+    /// totals (empty: none).
+    pub background_ionic_strength: Vec<f64>,
+    /// Molal scale: kg of solvent per litre of solution for each sample (ρ·w/1000, see
+    /// [`crate::thermo::ConcentrationScale`]); `None`: the molar scale.
+    pub kg_solvent_per_litre: Option<Vec<f64>>,
+    /// Relative tolerance on |ΔI| / I at self-consistency.
+    pub ionic_strength_tolerance: f64,
+    /// Outer (ionic-strength) iterations allowed per sample before
+    /// [`SpeciationError::IonicStrengthNotConverged`].
+    pub ionic_strength_iterations: usize,
+}
+
+impl Default for Medium {
+    fn default() -> Self {
+        Self {
+            activity: ActivityCorrection::None,
+            temperatures_k: Vec::new(),
+            background_ionic_strength: Vec::new(),
+            kg_solvent_per_litre: None,
+            ionic_strength_tolerance: IONIC_STRENGTH_TOLERANCE,
+            ionic_strength_iterations: 100,
+        }
+    }
+}
+
+impl Medium {
+    /// `true` when the medium changes nothing (no activity corrections, molar scale).
+    pub fn is_ideal(&self) -> bool {
+        self.activity.is_none() && self.kg_solvent_per_litre.is_none()
+    }
+
+    /// The medium of the samples `rows` (per-sample entries picked in that order; empty
+    /// per-sample lists stay empty).
+    ///
+    /// ```
+    /// use isosbestic::speciation::Medium;
+    /// let m = Medium { temperatures_k: vec![280.0, 300.0, 320.0], ..Medium::default() };
+    /// assert_eq!(m.select(&[2, 0]).temperatures_k, vec![320.0, 280.0]);
+    /// assert!(m.select(&[1]).background_ionic_strength.is_empty());
+    /// ```
+    pub fn select(&self, rows: &[usize]) -> Medium {
+        let pick = |v: &[f64]| -> Vec<f64> {
+            if v.is_empty() {
+                Vec::new()
+            } else {
+                rows.iter().filter_map(|&i| v.get(i).copied()).collect()
+            }
+        };
+        Medium {
+            activity: self.activity.clone(),
+            temperatures_k: pick(&self.temperatures_k),
+            background_ionic_strength: pick(&self.background_ionic_strength),
+            kg_solvent_per_litre: self.kg_solvent_per_litre.as_deref().map(pick),
+            ionic_strength_tolerance: self.ionic_strength_tolerance,
+            ionic_strength_iterations: self.ionic_strength_iterations,
+        }
+    }
+}
+
+/// As [`speciate_all_into`], in a non-ideal [`Medium`]: activity corrections iterated to a
+/// self-consistent ionic strength, and/or the molal scale. `log_betas` are then the
+/// thermodynamic constants on the medium's scale; `totals` stay in mol/L, and the
+/// concentrations, free concentrations and derivatives written to `batch` are in mol/L.
+/// [`SpeciationBatch::ionic_strength`] receives I (and is the warm start of the next call
+/// with [`Start::Warm`]).
+///
+/// Derivatives (when `batch.derivatives` is `Some`) are exact: implicit differentiation of the
+/// mass balance coupled with the ionic-strength equation (see the crate's speciation docs).
+///
+/// # Errors
+/// As [`speciate_all_into`]; also [`SpeciationError::UnknownCharge`] (activity on, a species
+/// without charge), [`SpeciationError::Shape`] for per-sample vectors of the wrong length,
+/// [`SpeciationError::InvalidMedium`] (a non-positive kg of solvent per litre, a negative
+/// background ionic strength, a non-positive temperature), [`SpeciationError::Activity`]
+/// (e.g. a temperature outside 0–100 °C for the water-based A(T), B(T)) and
+/// [`SpeciationError::IonicStrengthNotConverged`], each naming the sample.
+///
+/// # Examples
+/// ```
+/// use isosbestic::speciation::{speciate_all_in_medium, EquilibriumModel, Medium, SpeciationBatch, Derivatives, Start};
+/// use isosbestic::thermo::{ActivityCorrection, ActivityModel, Davies};
+/// use ndarray::array;
+/// let model = EquilibriumModel::from_toml_str(r#"
+///     components = [{ name = "M", absorbs = true, charge = 2 }, { name = "L", absorbs = false, charge = -1 }]
+///     [[species]]
+///     name = "ML"
+///     stoichiometry = { M = 1, L = 1 }
+///     absorbs = true
+///     law = { kind = "fixed", log_beta = { value = 3.0 } }
+/// "#)?.check()?;
+/// let davies = ActivityCorrection::Davies(Davies::default());
+/// let medium = Medium {
+///     activity: davies,
+///     temperatures_k: vec![298.15],
+///     background_ionic_strength: vec![0.05],
+///     ..Medium::default()
+/// };
+/// let mut batch = SpeciationBatch::new(&model, 1, Derivatives::Skip);
+/// speciate_all_in_medium(&model, array![[0.0, 0.0, 3.0]].view(), array![[1e-3, 4e-3]].view(),
+///     &["s1"], Start::Cold, &medium, &mut batch)?;
+/// let (c, i) = (batch.concentrations.row(0), batch.ionic_strength[0]);
+/// // self-consistent: I = I_bg + ½ Σ cz²
+/// approx::assert_relative_eq!(i, 0.05 + 0.5 * (4.0 * c[0] + c[1] + c[2]), max_relative = 1e-9);
+/// // mass action holds with the conditional constant at that I
+/// let lg = |z| davies.log10_gamma(z, i, 298.15).unwrap();
+/// let log_beta_c = 3.0 + lg(2) + lg(-1) - lg(1);
+/// approx::assert_relative_eq!((c[2] / (c[0] * c[1])).log10(), log_beta_c, max_relative = 1e-9);
+/// # Ok::<(), Box<dyn std::error::Error>>(())
+/// ```
+pub fn speciate_all_in_medium<S: AsRef<str>>(
+    model: &ValidModel,
+    log_betas: ArrayView2<f64>,
+    totals: ArrayView2<f64>,
+    sample_ids: &[S],
+    start: Start,
+    medium: &Medium,
+    batch: &mut SpeciationBatch,
+) -> Result<(), SpeciationError> {
+    if medium.is_ideal() {
+        return speciate_all_into(model, log_betas, totals, sample_ids, start, batch);
+    }
+    let (ns, nsp, nc) = (log_betas.nrows(), model.n_species(), model.n_components());
+    check_len("log_betas columns (species)", nsp, log_betas.ncols())?;
+    check_len("totals rows (samples)", ns, totals.nrows())?;
+    check_len("totals columns (components)", nc, totals.ncols())?;
+    check_len("sample ids", ns, sample_ids.len())?;
+    check_len("batch concentrations rows", ns, batch.concentrations.nrows())?;
+    check_len("batch concentrations columns", nsp, batch.concentrations.ncols())?;
+    check_len("batch free rows", ns, batch.free.nrows())?;
+    check_len("batch free columns", nc, batch.free.ncols())?;
+    if let Some(d) = &batch.derivatives {
+        check_len("batch derivatives", ns * nsp * nsp, d.len())?;
+    }
+    let activity_on = !medium.activity.is_none();
+    let charges = if activity_on {
+        check_len("medium temperatures (samples)", ns, medium.temperatures_k.len())?;
+        model.charges()?
+    } else {
+        vec![0; nsp]
+    };
+    if !medium.background_ionic_strength.is_empty() {
+        check_len(
+            "medium background ionic strengths (samples)",
+            ns,
+            medium.background_ionic_strength.len(),
+        )?;
+    }
+    if let Some(f) = &medium.kg_solvent_per_litre {
+        check_len("medium kg of solvent per litre (samples)", ns, f.len())?;
+    }
+    let tolerance = medium.ionic_strength_tolerance;
+    if !(tolerance.is_finite() && tolerance > 0.0) {
+        return Err(SpeciationError::InvalidMedium {
+            sample: sample_ids
+                .first()
+                .map_or_else(String::new, |s| s.as_ref().to_string()),
+            what: "ionic_strength_tolerance",
+            value: tolerance,
+            requirement: "positive and finite",
+        });
+    }
+    batch.iterations.resize(ns, 0);
+    batch.residuals.resize(ns, 0.0);
+    batch.ionic_strength.resize(ns, f64::NAN);
+    let mut ws = Workspace::new(model);
+    for (z2, &z) in ws.z2.iter_mut().zip(&charges) {
+        *z2 = f64::from(z * z);
+    }
+    let mut start_u = vec![0.0; nc];
+    let mut scaled = vec![0.0; nc];
+    let mut dbuf = vec![0.0; if batch.derivatives.is_some() { nsp * nsp } else { 0 }];
+    for (s, id) in sample_ids.iter().enumerate() {
+        let id = id.as_ref();
+        let invalid = |what, value, requirement| SpeciationError::InvalidMedium {
+            sample: id.to_string(),
+            what,
+            value,
+            requirement,
+        };
+        let f = match &medium.kg_solvent_per_litre {
+            Some(v) => {
+                let f = v[s];
+                if !(f.is_finite() && f > 0.0) {
+                    return Err(invalid("kg of solvent per litre", f, "positive and finite"));
+                }
+                f
+            }
+            None => 1.0,
+        };
+        for (o, &t) in scaled.iter_mut().zip(totals.row(s)) {
+            *o = t / f;
+        }
+        ws.load(
+            model,
+            log_betas.row(s).iter().copied(),
+            scaled.iter().copied(),
+            id,
+        )?;
+        let warm = match start {
+            Start::Warm => {
+                for (u, &x) in start_u.iter_mut().zip(batch.free.row(s)) {
+                    *u = if x > 0.0 { (x / f).ln() } else { f64::NAN };
+                }
+                Some(start_u.as_slice())
+            }
+            Start::Cold => None,
+        };
+        let (it, rel) = if activity_on {
+            let t_k = medium.temperatures_k[s];
+            if !(t_k.is_finite() && t_k > 0.0) {
+                return Err(invalid("temperature (K)", t_k, "positive and finite"));
+            }
+            let background = medium.background_ionic_strength.get(s).copied().unwrap_or(0.0);
+            if !(background.is_finite() && background >= 0.0) {
+                return Err(invalid(
+                    "background ionic strength",
+                    background,
+                    "non-negative and finite",
+                ));
+            }
+            ws.ln_beta0.copy_from_slice(&ws.ln_beta);
+            let start_i = match start {
+                Start::Warm => Some(batch.ionic_strength[s]),
+                Start::Cold => None,
+            };
+            let (it, rel, i) = ws.solve_with_activity(
+                &medium.activity,
+                &charges,
+                t_k,
+                background / f,
+                (tolerance, medium.ionic_strength_iterations),
+                warm,
+                start_i,
+                id,
+            )?;
+            batch.ionic_strength[s] = i;
+            (it, rel)
+        } else {
+            let (it, rel, _) = ws.solve(warm, id)?;
+            (it, rel)
+        };
+        batch.iterations[s] = it;
+        batch.residuals[s] = rel;
+        for (o, &c) in batch.concentrations.row_mut(s).iter_mut().zip(&ws.c) {
+            *o = c * f;
+        }
+        for (o, &c) in batch.free.row_mut(s).iter_mut().zip(&ws.c) {
+            *o = c * f;
+        }
+        if let Some(d) = batch.derivatives.as_mut() {
+            if activity_on {
+                ws.derivatives_with_activity_into(&mut dbuf, id)?;
+            } else {
+                ws.derivatives_into(&mut dbuf, id)?;
+            }
+            for (o, &v) in d.index_axis_mut(ndarray::Axis(0), s).iter_mut().zip(&dbuf) {
+                *o = v * f;
             }
         }
     }

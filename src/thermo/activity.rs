@@ -30,9 +30,23 @@
 //! tenths of a percent; A ∝ ε^{-3/2}).
 //!
 //! The [`ActivityModel`] trait is the extension point for further models (e.g. specific ion
-//! interaction). Iterating ionic strength and speciation to self-consistency happens where the
-//! speciation is solved; [`conditional_log_beta`] converts a thermodynamic log β to the
-//! conditional log β for given activity coefficients.
+//! interaction): a model supplies log γ(z, I, T), and optionally its slope in I (a finite
+//! difference is provided). Iterating ionic strength and speciation to self-consistency
+//! happens where the speciation is solved ([`crate::speciation::speciate_all_in_medium`]);
+//! [`conditional_log_beta`] converts a thermodynamic log β to the conditional log β for given
+//! activity coefficients.
+//!
+//! ## Limits
+//! - Both models know an ion only by its charge (and, for extended Debye–Hückel, one size
+//!   parameter): no specific interactions, no ion pairing beyond the species in the model.
+//!   Extended Debye–Hückel is meant for I up to about 0.1 mol/kg, Davies up to about 0.5;
+//!   above that (e.g. 1–3 mol/L brines) neither is reliable, and a constant ionic medium with
+//!   conditional constants (the default) is the sound choice.
+//! - γ of neutral species is 1 (no salting-out term).
+//! - A(T), B(T) are those of pure water at 0.101325 MPa, 0–100 °C, whatever the solvent: not
+//!   for other solvents or mixed solvents.
+//! - The models are written for the molal scale; with molar concentrations I in mol/L is used
+//!   in their place (a dilute approximation; choose the molal scale for hot solutions).
 
 use super::ThermoError;
 use super::density::kell_water_density_kg_m3;
@@ -149,7 +163,39 @@ pub trait ActivityModel {
     /// # Errors
     /// A negative or non-finite ionic strength, or a temperature outside the model's range.
     fn log10_gamma(&self, charge: i32, ionic_strength: f64, temperature_k: f64) -> Result<f64, ThermoError>;
+
+    /// ∂ log₁₀ γ / ∂I at fixed T, for the exact derivatives of a speciation with activity
+    /// corrections (implicit differentiation through the ionic strength).
+    ///
+    /// The provided method is a central difference (one-sided near I = 0) of
+    /// [`ActivityModel::log10_gamma`], so a new model needs only `log10_gamma`; the models here
+    /// override it with the analytic derivative. Models of the form √I (all of them) have an
+    /// infinite slope at I = 0: it is evaluated at I ≥ 1e-30 mol/kg, where it is large but finite.
+    ///
+    /// # Errors
+    /// As [`ActivityModel::log10_gamma`].
+    fn d_log10_gamma_d_ionic_strength(
+        &self,
+        charge: i32,
+        ionic_strength: f64,
+        temperature_k: f64,
+    ) -> Result<f64, ThermoError> {
+        check_ionic_strength(ionic_strength)?;
+        let i = ionic_strength.max(SLOPE_FLOOR);
+        let h = 1e-5 * i;
+        if i > h {
+            let up = self.log10_gamma(charge, i + h, temperature_k)?;
+            let down = self.log10_gamma(charge, i - h, temperature_k)?;
+            Ok((up - down) / (2.0 * h))
+        } else {
+            let up = self.log10_gamma(charge, i + h, temperature_k)?;
+            Ok((up - self.log10_gamma(charge, i, temperature_k)?) / h)
+        }
+    }
 }
+
+/// Smallest ionic strength at which the slope of a √I law is evaluated, mol/kg.
+const SLOPE_FLOOR: f64 = 1e-30;
 
 /// The Davies equation: log γ = −A(T) z² (√I/(1 + √I) − c I), with c = 0.3 by default.
 ///
@@ -163,6 +209,7 @@ pub trait ActivityModel {
 /// # Ok::<(), isosbestic::thermo::ThermoError>(())
 /// ```
 #[derive(Debug, Clone, Copy, PartialEq, Serialize, Deserialize)]
+#[serde(default, deny_unknown_fields)]
 pub struct Davies {
     /// The linear coefficient c (0.3 in Davies' equation).
     pub linear_coefficient: f64,
@@ -184,10 +231,27 @@ impl ActivityModel for Davies {
         let z2 = f64::from(charge * charge);
         Ok(-a * z2 * (s / (1.0 + s) - self.linear_coefficient * ionic_strength))
     }
+
+    /// −A z² (1/(2√I (1 + √I)²) − c).
+    fn d_log10_gamma_d_ionic_strength(
+        &self,
+        charge: i32,
+        ionic_strength: f64,
+        temperature_k: f64,
+    ) -> Result<f64, ThermoError> {
+        check_ionic_strength(ionic_strength)?;
+        let a = debye_huckel_a(temperature_k)?;
+        if charge == 0 {
+            return Ok(0.0);
+        }
+        let s = ionic_strength.max(SLOPE_FLOOR).sqrt();
+        let z2 = f64::from(charge * charge);
+        Ok(-a * z2 * (1.0 / (2.0 * s * (1.0 + s) * (1.0 + s)) - self.linear_coefficient))
+    }
 }
 
-/// The size term of the extended Debye–Hückel equation.
-#[derive(Debug, Clone, Copy, PartialEq, Serialize, Deserialize)]
+/// The size term of the extended Debye–Hückel equation (Bates–Guggenheim by default).
+#[derive(Debug, Clone, Copy, PartialEq, Serialize, Deserialize, Default)]
 #[serde(tag = "kind", rename_all = "snake_case")]
 pub enum DebyeHuckelSize {
     /// An ion-size parameter å in Å, multiplied by B(T).
@@ -197,6 +261,7 @@ pub enum DebyeHuckelSize {
     },
     /// The Bates–Guggenheim convention: B å = 1.5 kg^½ mol^-½ at every temperature (IUPAC
     /// Gold Book).
+    #[default]
     BatesGuggenheim,
 }
 
@@ -211,17 +276,17 @@ pub enum DebyeHuckelSize {
 /// approx::assert_relative_eq!(lg, -debye_huckel_a(298.15)? * 0.2 / 1.3, max_relative = 1e-12);
 /// # Ok::<(), isosbestic::thermo::ThermoError>(())
 /// ```
-#[derive(Debug, Clone, Copy, PartialEq, Serialize, Deserialize)]
+#[derive(Debug, Clone, Copy, PartialEq, Serialize, Deserialize, Default)]
+#[serde(default, deny_unknown_fields)]
 pub struct ExtendedDebyeHuckel {
     /// The size term in the denominator.
     pub size: DebyeHuckelSize,
 }
 
-impl ActivityModel for ExtendedDebyeHuckel {
-    fn log10_gamma(&self, charge: i32, ionic_strength: f64, temperature_k: f64) -> Result<f64, ThermoError> {
-        check_ionic_strength(ionic_strength)?;
-        let a = debye_huckel_a(temperature_k)?;
-        let ba = match self.size {
+impl ExtendedDebyeHuckel {
+    /// B(T)·å, kg^½ mol^-½.
+    fn size_term(&self, temperature_k: f64) -> Result<f64, ThermoError> {
+        Ok(match self.size {
             DebyeHuckelSize::BatesGuggenheim => 1.5,
             DebyeHuckelSize::IonSizeAngstrom { value } => {
                 if !(value.is_finite() && value >= 0.0) {
@@ -233,9 +298,35 @@ impl ActivityModel for ExtendedDebyeHuckel {
                 }
                 debye_huckel_b_per_angstrom(temperature_k)? * value
             }
-        };
+        })
+    }
+}
+
+impl ActivityModel for ExtendedDebyeHuckel {
+    fn log10_gamma(&self, charge: i32, ionic_strength: f64, temperature_k: f64) -> Result<f64, ThermoError> {
+        check_ionic_strength(ionic_strength)?;
+        let a = debye_huckel_a(temperature_k)?;
+        let ba = self.size_term(temperature_k)?;
         let s = ionic_strength.sqrt();
         Ok(-a * f64::from(charge * charge) * s / (1.0 + ba * s))
+    }
+
+    /// −A z² / (2√I (1 + Bå√I)²).
+    fn d_log10_gamma_d_ionic_strength(
+        &self,
+        charge: i32,
+        ionic_strength: f64,
+        temperature_k: f64,
+    ) -> Result<f64, ThermoError> {
+        check_ionic_strength(ionic_strength)?;
+        let a = debye_huckel_a(temperature_k)?;
+        let ba = self.size_term(temperature_k)?;
+        if charge == 0 {
+            return Ok(0.0);
+        }
+        let s = ionic_strength.max(SLOPE_FLOOR).sqrt();
+        let q = 1.0 + ba * s;
+        Ok(-a * f64::from(charge * charge) / (2.0 * s * q * q))
     }
 }
 
@@ -264,6 +355,31 @@ impl ActivityModel for ActivityCorrection {
             Self::Davies(m) => m.log10_gamma(charge, ionic_strength, temperature_k),
             Self::ExtendedDebyeHuckel(m) => m.log10_gamma(charge, ionic_strength, temperature_k),
         }
+    }
+
+    fn d_log10_gamma_d_ionic_strength(
+        &self,
+        charge: i32,
+        ionic_strength: f64,
+        temperature_k: f64,
+    ) -> Result<f64, ThermoError> {
+        match self {
+            Self::None => {
+                check_ionic_strength(ionic_strength)?;
+                Ok(0.0)
+            }
+            Self::Davies(m) => m.d_log10_gamma_d_ionic_strength(charge, ionic_strength, temperature_k),
+            Self::ExtendedDebyeHuckel(m) => {
+                m.d_log10_gamma_d_ionic_strength(charge, ionic_strength, temperature_k)
+            }
+        }
+    }
+}
+
+impl ActivityCorrection {
+    /// `true` for [`ActivityCorrection::None`].
+    pub fn is_none(&self) -> bool {
+        matches!(self, Self::None)
     }
 }
 
@@ -376,6 +492,50 @@ mod tests {
         };
         let a = debye_huckel_a(300.0).unwrap();
         assert_abs_diff_eq!(m.log10_gamma(1, 0.01, 300.0).unwrap(), -a * 0.1, epsilon = 1e-14);
+    }
+
+    #[test]
+    fn analytic_slopes_match_central_differences() {
+        // the trait's provided finite-difference slope is the reference for the analytic ones
+        struct Plain<M: ActivityModel>(M);
+        impl<M: ActivityModel> ActivityModel for Plain<M> {
+            fn log10_gamma(&self, z: i32, i: f64, t: f64) -> Result<f64, ThermoError> {
+                self.0.log10_gamma(z, i, t)
+            }
+        }
+        let models = [
+            ActivityCorrection::Davies(Davies::default()),
+            ActivityCorrection::ExtendedDebyeHuckel(ExtendedDebyeHuckel::default()),
+            ActivityCorrection::ExtendedDebyeHuckel(ExtendedDebyeHuckel {
+                size: DebyeHuckelSize::IonSizeAngstrom { value: 6.0 },
+            }),
+        ];
+        for m in models {
+            for (z, i, t) in [
+                (1, 1e-4, 280.0),
+                (2, 0.05, 298.15),
+                (-3, 0.7, 350.0),
+                (0, 0.2, 300.0),
+            ] {
+                let exact = m.d_log10_gamma_d_ionic_strength(z, i, t).unwrap();
+                let fd = Plain(m).d_log10_gamma_d_ionic_strength(z, i, t).unwrap();
+                assert_abs_diff_eq!(exact, fd, epsilon = 1e-7 * exact.abs().max(1e-3));
+            }
+        }
+    }
+
+    #[test]
+    fn short_forms_of_the_models_parse_with_their_defaults() {
+        let d: ActivityCorrection = serde_json::from_str(r#"{"model":"davies"}"#).unwrap();
+        assert_eq!(d, ActivityCorrection::Davies(Davies::default()));
+        let e: ActivityCorrection = serde_json::from_str(r#"{"model":"extended_debye_huckel"}"#).unwrap();
+        assert_eq!(
+            e,
+            ActivityCorrection::ExtendedDebyeHuckel(ExtendedDebyeHuckel {
+                size: DebyeHuckelSize::BatesGuggenheim
+            })
+        );
+        assert!(serde_json::from_str::<ActivityCorrection>(r#"{"model":"davies","c":1}"#).is_err());
     }
 
     #[test]

@@ -14,10 +14,27 @@
 //! 0.101325 MPa); other solvents or brines can supply a table of (T, ρ) interpolated with the
 //! monotone cubic of [`crate::preprocess::interpolate`]; or a constant density switches the
 //! correction off.
+//!
+//! ## Density table file (CSV)
+//! [`DensityTable::read_csv`] reads a table of a solvent or brine: one temperature column whose
+//! header states its unit, `temperature_C` or `temperature_K`, and a `density_kg_m3` column;
+//! other columns are ignored. Columns are separated by `,`, `;` or a tab (chosen from the
+//! header); `.` is the decimal mark; `#` comment lines and blank lines are skipped; rows must
+//! be in strictly increasing temperature. Every error names the file, line and column.
+//!
+//! ```text
+//! # 1 mol/kg LiClO4 (invented values, for illustration)
+//! temperature_C,density_kg_m3
+//! 10,1064.1
+//! 25,1059.3
+//! 40,1053.6
+//! ```
 
 use super::ThermoError;
-use crate::data::{Interpolation, ZERO_CELSIUS_K};
+use crate::data::csv_io::CsvError;
+use crate::data::{Interpolation, Location, ZERO_CELSIUS_K};
 use serde::{Deserialize, Serialize};
+use std::path::Path;
 
 /// Lowest temperature at which [`kell_water_density_kg_m3`] is used, K (0 °C).
 pub const KELL_MIN_K: f64 = ZERO_CELSIUS_K;
@@ -142,6 +159,202 @@ impl DensityTable {
     pub fn densities_kg_m3(&self) -> &[f64] {
         &self.densities_kg_m3
     }
+
+    /// Parses a density table from CSV text (format in the [module docs](self)); `source` is
+    /// the file named in errors and, by its name, the table's name.
+    ///
+    /// # Errors
+    /// [`CsvError`] naming file, line and column: no temperature column or one without its unit
+    /// ([`CsvError::MissingTemperatureUnit`]), no `density_kg_m3` column, a ragged row, a cell
+    /// that is not a finite number, a temperature at or below absolute zero or not above the
+    /// previous row's, a density that is not positive ([`CsvError::ImpossibleValue`]), fewer
+    /// than two rows ([`CsvError::Empty`]).
+    ///
+    /// # Examples
+    /// ```
+    /// use isosbestic::thermo::{DensityTable, SolventDensity};
+    /// let t = DensityTable::parse_csv("temperature_C;density_kg_m3\n10;1064.1\n40;1053.6\n", None)?;
+    /// approx::assert_abs_diff_eq!(t.temperatures_k()[1], 313.15, epsilon = 1e-12);
+    /// let rho = SolventDensity::Table(t).density_kg_m3(298.15)?;
+    /// approx::assert_abs_diff_eq!(rho, 0.5 * (1064.1 + 1053.6), epsilon = 1e-9); // two rows: a line
+    ///
+    /// let e = DensityTable::parse_csv("temperature_C,density_kg_m3\n10,1064.1\n5,1065\n", None)
+    ///     .unwrap_err();
+    /// assert!(e.to_string().contains("line 3"), "{e}");
+    /// # Ok::<(), Box<dyn std::error::Error>>(())
+    /// ```
+    pub fn parse_csv(text: &str, source: Option<&Path>) -> Result<Self, CsvError> {
+        let at = || Location {
+            file: source.map(Path::to_path_buf),
+            line: None,
+            column: None,
+        };
+        let text = text.strip_prefix('\u{feff}').unwrap_or(text);
+        let mut lines = text
+            .lines()
+            .enumerate()
+            .map(|(i, l)| {
+                (
+                    u64::try_from(i).map_or(u64::MAX, |i| i.saturating_add(1)),
+                    l.trim(),
+                )
+            })
+            .filter(|(_, l)| !l.is_empty() && !l.starts_with('#'));
+        let Some((header_line, header)) = lines.next() else {
+            return Err(CsvError::Empty {
+                location: at(),
+                what: "no header line (only blank or # comment lines)",
+            });
+        };
+        let delimiter = [',', ';', '\t']
+            .into_iter()
+            .max_by_key(|d| header.split(*d).count())
+            .unwrap_or(',');
+        let split = |l: &str| -> Vec<String> {
+            l.split(delimiter)
+                .map(|c| c.trim().trim_matches('"').trim().to_string())
+                .collect()
+        };
+        let fields = split(header);
+        let col_at = |c: usize| u64::try_from(c).map_or(u64::MAX, |c| c.saturating_add(1));
+        let find = |names: &[&str]| fields.iter().position(|f| names.contains(&f.as_str()));
+        let t_col = match (
+            find(&["temperature_C", "temperature_c"]),
+            find(&["temperature_K", "temperature_k"]),
+        ) {
+            (Some(c), None) => (c, true),
+            (None, Some(k)) => (k, false),
+            (Some(_), Some(k)) => {
+                return Err(CsvError::BadHeader {
+                    location: at().at_line(header_line).at_column(col_at(k)),
+                    name: fields[k].clone(),
+                    problem: "is a second temperature column; give temperature_C or temperature_K".into(),
+                });
+            }
+            (None, None) => {
+                if let Some(c) = find(&["temperature", "T", "temp", "t"]) {
+                    return Err(CsvError::MissingTemperatureUnit {
+                        location: at().at_line(header_line).at_column(col_at(c)),
+                        column: fields[c].clone(),
+                        expected_k: "temperature_K",
+                        expected_c: "temperature_C",
+                    });
+                }
+                return Err(CsvError::MissingColumn {
+                    location: at().at_line(header_line),
+                    column: "temperature_C (or temperature_K)".into(),
+                });
+            }
+        };
+        let Some(rho_col) = find(&["density_kg_m3"]) else {
+            return Err(CsvError::MissingColumn {
+                location: at().at_line(header_line),
+                column: "density_kg_m3".into(),
+            });
+        };
+        let (mut temps, mut rhos) = (Vec::new(), Vec::new());
+        for (line, l) in lines {
+            let cells = split(l);
+            if cells.len() != fields.len() {
+                return Err(CsvError::Ragged {
+                    location: at().at_line(line),
+                    expected: fields.len(),
+                    found: cells.len(),
+                });
+            }
+            let number = |c: usize, what: &str| -> Result<f64, CsvError> {
+                let text = cells[c].as_str();
+                let location = at().at_line(line).at_column(col_at(c));
+                if text.is_empty() {
+                    return Err(CsvError::MissingValue {
+                        location,
+                        what: what.into(),
+                    });
+                }
+                match text.parse::<f64>() {
+                    Ok(v) if v.is_finite() => Ok(v),
+                    Ok(_) => Err(CsvError::NonFinite {
+                        location,
+                        what: what.into(),
+                        text: text.into(),
+                    }),
+                    Err(_) => Err(CsvError::NonNumeric {
+                        location,
+                        what: what.into(),
+                        text: text.into(),
+                    }),
+                }
+            };
+            let impossible =
+                |c: usize, what: &str, value: f64, requirement: &'static str| CsvError::ImpossibleValue {
+                    location: at().at_line(line).at_column(col_at(c)),
+                    what: what.into(),
+                    value,
+                    requirement,
+                };
+            let t = number(t_col.0, "temperature")?;
+            let t_k = if t_col.1 { t + ZERO_CELSIUS_K } else { t };
+            if t_k <= 0.0 {
+                return Err(impossible(
+                    t_col.0,
+                    "temperature",
+                    t,
+                    "must be above absolute zero",
+                ));
+            }
+            if temps.last().is_some_and(|&prev| t_k <= prev) {
+                return Err(impossible(
+                    t_col.0,
+                    "temperature",
+                    t,
+                    "rows must be in strictly increasing temperature (it is not above the previous row's)",
+                ));
+            }
+            let rho = number(rho_col, "density_kg_m3")?;
+            if rho <= 0.0 {
+                return Err(impossible(rho_col, "density_kg_m3", rho, "must be positive"));
+            }
+            temps.push(t_k);
+            rhos.push(rho);
+        }
+        if temps.len() < 2 {
+            return Err(CsvError::Empty {
+                location: at(),
+                what: "a density table needs at least two rows below the header",
+            });
+        }
+        let name = source.and_then(|p| p.file_name()).map_or_else(
+            || "density table".to_string(),
+            |n| n.to_string_lossy().into_owned(),
+        );
+        // validated above row by row; this cannot fail, but report rather than panic
+        Self::new(name, temps, rhos).map_err(|e| CsvError::Malformed {
+            location: at(),
+            detail: e.to_string(),
+        })
+    }
+
+    /// Reads a density table from a CSV file (see [`DensityTable::parse_csv`]).
+    ///
+    /// # Errors
+    /// [`CsvError::Unreadable`] naming the file, or as [`DensityTable::parse_csv`].
+    ///
+    /// # Examples
+    /// ```
+    /// let dir = tempfile::tempdir()?;
+    /// let p = dir.path().join("brine.csv");
+    /// std::fs::write(&p, "temperature_K,density_kg_m3\n280,1066\n320,1050\n")?;
+    /// let t = isosbestic::thermo::DensityTable::read_csv(&p)?;
+    /// assert_eq!(t.name(), "brine.csv");
+    /// # Ok::<(), Box<dyn std::error::Error>>(())
+    /// ```
+    pub fn read_csv(path: &Path) -> Result<Self, CsvError> {
+        let text = std::fs::read_to_string(path).map_err(|source| CsvError::Unreadable {
+            file: path.to_path_buf(),
+            source,
+        })?;
+        Self::parse_csv(&text, Some(path))
+    }
 }
 
 /// Where the solvent density ρ(T) comes from.
@@ -261,6 +474,15 @@ impl SolventDensity {
 /// solution. With ρ the pure-solvent density and w = 1 it is the **dilute approximation**
 /// m ≈ c/ρ_solvent, good to about the solute mass fraction (≈ 1 % for 0.1 mol/L of a salt of
 /// molar mass 100 g/mol). isosbestic does not model how ρ_solution and w depend on composition.
+///
+/// In the global fit ([`crate::resolve::hard::HardFitParams::concentration_scale`]) ρ is the
+/// density at each sample's measurement temperature from the thermal-expansion density source
+/// (Kell's water, or a density table of the solvent or brine — then ρ is that solution's
+/// density and w its solvent mass fraction), so the molal totals do not change with
+/// temperature: c(T)/ρ(T) = c(T_prep)/ρ(T_prep).
+///
+/// In a file: `{ scale = "molar" }`, `{ scale = "molal" }` (w = 1) or
+/// `{ scale = "molal", solvent_mass_fraction = 0.95 }`.
 #[derive(Debug, Clone, Copy, PartialEq, Serialize, Deserialize, Default)]
 #[serde(tag = "scale", rename_all = "snake_case")]
 pub enum ConcentrationScale {
@@ -269,9 +491,15 @@ pub enum ConcentrationScale {
     Molar,
     /// mol/kg of solvent.
     Molal {
-        /// Solvent mass fraction w of the solution (1 for the dilute approximation).
+        /// Solvent mass fraction w of the solution (1, the default, for the dilute
+        /// approximation).
+        #[serde(default = "unit_mass_fraction")]
         solvent_mass_fraction: f64,
     },
+}
+
+fn unit_mass_fraction() -> f64 {
+    1.0
 }
 
 impl ConcentrationScale {
@@ -392,6 +620,50 @@ mod tests {
         ));
         let json = r#"{"kind":"table","name":"x","temperatures_k":[300,290],"densities_kg_m3":[1,1]}"#;
         assert!(serde_json::from_str::<SolventDensity>(json).is_err());
+    }
+
+    #[test]
+    fn a_density_csv_reads_either_temperature_unit_and_ignores_other_columns() {
+        let c = DensityTable::parse_csv(
+            "\u{feff}# brine\n\ntemperature_C\tnote\tdensity_kg_m3\n10\ta\t1064.1\n25\t\t1059.3\n",
+            None,
+        )
+        .unwrap();
+        assert_abs_diff_eq!(c.temperatures_k()[0], 283.15, epsilon = 1e-12);
+        assert_abs_diff_eq!(c.densities_kg_m3()[1], 1059.3, epsilon = 1e-12);
+        let k = DensityTable::parse_csv(
+            "temperature_K,density_kg_m3\n283.15,1064.1\n298.15,1059.3\n",
+            None,
+        )
+        .unwrap();
+        assert_eq!(k.temperatures_k(), c.temperatures_k());
+    }
+
+    #[test]
+    fn a_bad_density_csv_names_file_line_and_column() {
+        let f = Some(Path::new("brine.csv"));
+        let cases = [
+            ("temperature,density_kg_m3\n10,1\n20,1\n", "line 1, column 1"),
+            ("temperature_C,rho\n10,1\n20,1\n", "density_kg_m3"),
+            (
+                "temperature_C,density_kg_m3\n10,1000\n20,abc\n",
+                "line 3, column 2",
+            ),
+            (
+                "temperature_C,density_kg_m3\n10,1000\n20,-5\n",
+                "line 3, column 2",
+            ),
+            ("temperature_C,density_kg_m3\n10,1000\n20\n", "line 3"),
+            ("temperature_C,density_kg_m3\n10,1000\n", "two rows"),
+            (
+                "temperature_C,density_kg_m3\n-300,1000\n20,1\n",
+                "line 2, column 1",
+            ),
+        ];
+        for (text, expected) in cases {
+            let e = DensityTable::parse_csv(text, f).unwrap_err().to_string();
+            assert!(e.contains("brine.csv") && e.contains(expected), "{text:?}: {e}");
+        }
     }
 
     #[test]

@@ -4,8 +4,10 @@ use crate::input::DataArgs;
 use clap::{Args, ValueEnum};
 use isosbestic::report::fit::{FitRunConfig, run_fit, write_fit_outputs, write_fit_page};
 use isosbestic::resolve::hard::{Baseline, ConcentrationBasis, SpectraTemperature};
-use isosbestic::thermo::SolventDensity;
-use std::path::PathBuf;
+use isosbestic::thermo::{
+    ActivityCorrection, ConcentrationScale, Davies, DensityTable, ExtendedDebyeHuckel, SolventDensity,
+};
+use std::path::{Path, PathBuf};
 use std::process::ExitCode;
 
 #[derive(Debug, Clone, Copy, ValueEnum)]
@@ -36,11 +38,30 @@ enum ExpansionArg {
     Water,
 }
 
+#[derive(Debug, Clone, Copy, ValueEnum)]
+enum ActivityArg {
+    /// No correction: constant ionic medium, conditional constants (the default).
+    None,
+    /// Davies equation (thermodynamic constants; every species needs a charge).
+    Davies,
+    /// Extended Debye–Hückel with the Bates–Guggenheim size term (B·å = 1.5).
+    ExtendedDebyeHuckel,
+}
+
+#[derive(Debug, Clone, Copy, ValueEnum)]
+enum ScaleArg {
+    /// mol/L (the default).
+    Molar,
+    /// mol/kg of solvent (dilute approximation: kg of solvent per litre = ρ_solvent(T)/1000).
+    Molal,
+}
+
 #[derive(Debug, Args)]
 #[command(after_help = "Examples:\n  \
     isosbestic fit --config data/demo/fit.toml --out results/demo\n  \
     isosbestic fit --spectra s.csv --samples t.csv --model m.toml --baseline offset --expansion water --out results\n  \
-    isosbestic fit --config run.toml --candidate with_dcp.toml --candidate three_species.toml --out ranked\n\n\
+    isosbestic fit --config run.toml --candidate with_dcp.toml --candidate three_species.toml --out ranked\n\
+    isosbestic fit --config fit.toml --density-table brine.csv --out results\n\n\
     A configuration file holds every option (see data/demo/fit.toml); flags given on the command\n\
     line override it. Outputs go to --out; existing outputs are kept unless --force is given,\n\
     and inputs are never overwritten. Exit code 1 when the fit did not converge.\n\n\
@@ -75,6 +96,21 @@ pub struct FitArgs {
     /// Thermal expansion of the solutions between preparation and measurement.
     #[arg(long, value_enum)]
     expansion: Option<ExpansionArg>,
+    /// Density table of the solvent or brine (CSV: temperature_C or temperature_K,
+    /// density_kg_m3): totals scale with ρ(T)/ρ(T_prep) from this table (thermal expansion).
+    /// Also `density_table = "<CSV>"` at the top of the configuration file.
+    #[arg(long, value_name = "CSV", conflicts_with = "expansion")]
+    density_table: Option<PathBuf>,
+    /// Activity corrections (off by default: constant ionic medium, conditional constants).
+    /// Needs `charge` on the model's components.
+    #[arg(long, value_enum)]
+    activity: Option<ActivityArg>,
+    /// Ionic strength of the inert background electrolyte, mol/L as prepared (with --activity).
+    #[arg(long, value_name = "MOL_PER_L")]
+    medium_ionic_strength: Option<f64>,
+    /// Concentration scale of the formation constants.
+    #[arg(long, value_enum)]
+    scale: Option<ScaleArg>,
     /// Known noise (AU): fixes the scale of the standard errors instead of the residuals.
     #[arg(long, value_name = "AU")]
     noise: Option<f64>,
@@ -112,8 +148,7 @@ fn config_from(args: &FitArgs) -> isosbestic::Result<FitRunConfig> {
                 path: path.clone(),
                 source,
             })?;
-            toml::from_str::<FitRunConfig>(&text)
-                .map_err(|e| crate::usage(format!("{}: {e}", path.display())))?
+            parse_config(path, &text)?
         }
         None => {
             let model = args
@@ -156,6 +191,27 @@ fn config_from(args: &FitArgs) -> isosbestic::Result<FitRunConfig> {
             ExpansionArg::Water => ConcentrationBasis::ThermalExpansion(SolventDensity::Water),
         };
     }
+    if let Some(path) = &args.density_table {
+        config.fit.concentrations = density_table_expansion(path)?;
+    }
+    if let Some(a) = args.activity {
+        config.fit.activity = match a {
+            ActivityArg::None => ActivityCorrection::None,
+            ActivityArg::Davies => ActivityCorrection::Davies(Davies::default()),
+            ActivityArg::ExtendedDebyeHuckel => {
+                ActivityCorrection::ExtendedDebyeHuckel(ExtendedDebyeHuckel::default())
+            }
+        };
+    }
+    if let Some(i) = args.medium_ionic_strength {
+        config.fit.medium_ionic_strength = i;
+    }
+    if let Some(s) = args.scale {
+        config.fit.concentration_scale = match s {
+            ScaleArg::Molar => ConcentrationScale::Molar,
+            ScaleArg::Molal => ConcentrationScale::molal_dilute(),
+        };
+    }
     if let Some(n) = args.noise {
         config.fit.known_noise = Some(n);
     }
@@ -164,6 +220,29 @@ fn config_from(args: &FitArgs) -> isosbestic::Result<FitRunConfig> {
     }
     // candidate models: the flags add to those of the configuration file
     config.candidates.extend(args.candidates.iter().cloned());
+    Ok(config)
+}
+
+/// Thermal expansion with the density table in `path`.
+fn density_table_expansion(path: &Path) -> isosbestic::Result<ConcentrationBasis> {
+    let table = DensityTable::read_csv(path)?;
+    Ok(ConcentrationBasis::ThermalExpansion(SolventDensity::Table(table)))
+}
+
+/// Parses a run configuration. A top-level `density_table = "<CSV>"` (a path, relative to the
+/// folder the command runs in) is read here and becomes thermal expansion with that table.
+fn parse_config(path: &Path, text: &str) -> isosbestic::Result<FitRunConfig> {
+    let bad = |e: &dyn std::fmt::Display| crate::usage(format!("{}: {e}", path.display()));
+    let mut table: toml::Table = text.parse().map_err(|e| bad(&e))?;
+    let Some(value) = table.remove("density_table") else {
+        // the common case: parse the text itself so messages keep their line numbers
+        return toml::from_str::<FitRunConfig>(text).map_err(|e| bad(&e));
+    };
+    let toml::Value::String(file) = value else {
+        return Err(bad(&"density_table must be the path of a CSV file, as a string"));
+    };
+    let mut config: FitRunConfig = toml::Value::Table(table).try_into().map_err(|e| bad(&e))?;
+    config.fit.concentrations = density_table_expansion(Path::new(&file))?;
     Ok(config)
 }
 

@@ -53,8 +53,9 @@ mod problem;
 use super::lm::{self, LmParams, LmTermination};
 use crate::data::SpectraSet;
 use crate::speciation::{
-    Derivatives, FormationLaw, SpeciationBatch, SpeciationError, StandardQuantities, ValidModel,
+    Derivatives, FormationLaw, Medium, SpeciationBatch, SpeciationError, StandardQuantities, ValidModel,
 };
+use crate::thermo::{ActivityCorrection, ConcentrationScale, SolventDensity};
 use ndarray::{Array1, Array2};
 use ndarray_linalg::{Eigh, JobSvd, SVDDC, UPLO};
 use problem::{Projection, VarproProblem, sum_sq};
@@ -164,6 +165,18 @@ pub struct HardFitParams {
     pub baseline: Baseline,
     /// Concentration basis (thermal expansion).
     pub concentrations: ConcentrationBasis,
+    /// Concentration scale of the formation constants: molar (default) or molal. On the molal
+    /// scale the speciation runs in mol/kg, with kg of solvent per litre = ρ(T)·w/1000 from the
+    /// thermal-expansion density source (water by Kell's equation when the totals are used as
+    /// given); concentrations stay mol/L for Beer–Lambert.
+    pub concentration_scale: ConcentrationScale,
+    /// Activity corrections. Off by default: a constant ionic medium, and the fitted constants
+    /// are conditional constants for that medium. When on, the fitted log β are thermodynamic
+    /// (infinite dilution) and every species needs a charge.
+    pub activity: ActivityCorrection,
+    /// Ionic strength of the inert background electrolyte, mol/L as prepared (scaled like the
+    /// totals); used only with `activity`.
+    pub medium_ionic_strength: f64,
     /// Known noise σ (absorbance units): fixes the scale of the covariance instead of RSS/ν.
     pub known_noise: Option<f64>,
     /// Number of starting points tried per free log β (odd; 1 = start from the model values).
@@ -180,6 +193,9 @@ impl Default for HardFitParams {
             spectra_temperature: SpectraTemperature::Constant,
             baseline: Baseline::None,
             concentrations: ConcentrationBasis::AsGiven,
+            concentration_scale: ConcentrationScale::Molar,
+            activity: ActivityCorrection::None,
+            medium_ionic_strength: 0.0,
             known_noise: None,
             start_grid: 5,
             start_span: 2.0,
@@ -485,15 +501,17 @@ pub fn free_parameters(model: &ValidModel) -> Vec<FreeParameter> {
     out
 }
 
-/// Totals at the measurement temperature (samples × model components).
+/// Totals at the measurement temperature (samples × model components), and each sample's
+/// factor from prepared to measured concentrations.
 fn measurement_totals(
     set: &SpectraSet,
     model: &ValidModel,
     basis: &ConcentrationBasis,
-) -> Result<Array2<f64>, HardFitError> {
+) -> Result<(Array2<f64>, Vec<f64>), HardFitError> {
     model.check_totals(set.components())?;
     let ns = set.n_samples();
     let mut totals = Array2::zeros((ns, model.n_components()));
+    let mut factors = Vec::with_capacity(ns);
     for (i, sample) in set.samples().iter().enumerate() {
         let factor = match basis {
             ConcentrationBasis::AsGiven => 1.0,
@@ -507,8 +525,53 @@ fn measurement_totals(
         for (c, name) in model.component_names().iter().enumerate() {
             totals[[i, c]] = sample.totals_m[name] * factor;
         }
+        factors.push(factor);
     }
-    Ok(totals)
+    Ok((totals, factors))
+}
+
+/// The solution medium of the speciation: activity model with each sample's temperature and
+/// background ionic strength (scaled like the totals), and on the molal scale each sample's
+/// kg of solvent per litre, ρ(T)·w/1000, with ρ from the thermal-expansion density source
+/// (water when the totals are used as given or scaled by explicit factors).
+fn speciation_medium(
+    set: &SpectraSet,
+    params: &HardFitParams,
+    factors: &[f64],
+) -> Result<Medium, HardFitError> {
+    let i_bg = params.medium_ionic_strength;
+    if !(i_bg.is_finite() && i_bg >= 0.0) {
+        return Err(HardFitError::Settings(format!(
+            "medium_ionic_strength must be non-negative and finite (got {i_bg})"
+        )));
+    }
+    let kg_solvent_per_litre = match params.concentration_scale {
+        ConcentrationScale::Molar => None,
+        scale => {
+            let density = match &params.concentrations {
+                ConcentrationBasis::ThermalExpansion(d) => d.clone(),
+                _ => SolventDensity::Water,
+            };
+            let mut per_sample = Vec::with_capacity(set.n_samples());
+            for sample in set.samples() {
+                let m_per_c = density
+                    .density_kg_m3(sample.temperature_k)
+                    .and_then(|rho| scale.from_molar(1.0, rho))
+                    .map_err(|e| {
+                        HardFitError::Settings(format!("sample '{}': molal scale: {e}", sample.id))
+                    })?;
+                per_sample.push(1.0 / m_per_c);
+            }
+            Some(per_sample)
+        }
+    };
+    Ok(Medium {
+        activity: params.activity,
+        temperatures_k: set.temperatures_k().to_vec(),
+        background_ionic_strength: factors.iter().map(|f| f * i_bg).collect(),
+        kg_solvent_per_litre,
+        ..Medium::default()
+    })
 }
 
 /// Orthonormal basis Q_W (wavelengths × 1 or 2) of the baseline shapes W = [1, λ]: the
@@ -649,7 +712,11 @@ fn build_problem<'a>(
     if absorbing.is_empty() {
         return Err(HardFitError::NoAbsorbingSpecies);
     }
-    let totals = measurement_totals(set, model, &params.concentrations)?;
+    let (totals, factors) = measurement_totals(set, model, &params.concentrations)?;
+    let medium = speciation_medium(set, params, &factors)?;
+    if !params.activity.is_none() {
+        model.charges()?;
+    }
     let d = set.absorbance();
     let (ns, nw) = d.dim();
     let q_w = baseline_basis(set.wavelengths_nm(), params.baseline);
@@ -676,6 +743,7 @@ fn build_problem<'a>(
         spectra_temperature: params.spectra_temperature,
         reduced,
         batch: Mutex::new(SpeciationBatch::new(model, ns, Derivatives::Skip)),
+        medium,
     };
     Ok((problem, n_linear))
 }

@@ -3,7 +3,9 @@
 
 use super::{FreeParameter, SpectraTemperature};
 use crate::resolve::lm::{GaussNewtonProblem, NormalEquations};
-use crate::speciation::{Derivatives, FormationLaw, SpeciationBatch, Start, ValidModel, speciate_all_into};
+use crate::speciation::{
+    Derivatives, FormationLaw, Medium, SpeciationBatch, Start, ValidModel, speciate_all_in_medium,
+};
 use argmin::core::{Error as ArgminError, Jacobian, Operator};
 use ndarray::{Array1, Array2, ArrayView2};
 use ndarray_linalg::{JobSvd, SVDDC};
@@ -30,6 +32,8 @@ pub(crate) struct VarproProblem<'a> {
     pub reduced: Array2<f64>,
     /// Warm-start speciation buffer.
     pub batch: Mutex<SpeciationBatch>,
+    /// Activity corrections and concentration scale of the speciation (ideal by default).
+    pub medium: Medium,
 }
 
 /// The linear design X = [diag(b)·C_abs, diag(b·x)·C_abs, diag(b·x²)·C_abs] and the pieces of
@@ -108,25 +112,28 @@ impl<'a> VarproProblem<'a> {
         if batch.derivatives.is_some() != derivatives {
             let warm = std::mem::replace(&mut *batch, SpeciationBatch::new(self.model, lb.nrows(), want));
             batch.free.assign(&warm.free);
+            batch.ionic_strength.clone_from(&warm.ionic_strength);
         }
         // Warm start from the previous θ; if that fails, cold; if that fails too, clear the cache
         // so a failed trial point cannot poison later evaluations.
-        let warm = speciate_all_into(
+        let warm = speciate_all_in_medium(
             self.model,
             lb.view(),
             self.totals.view(),
             &self.sample_ids,
             Start::Warm,
+            &self.medium,
             &mut batch,
         );
         if warm.is_err() {
             batch.free.fill(0.0);
-            if let Err(e) = speciate_all_into(
+            if let Err(e) = speciate_all_in_medium(
                 self.model,
                 lb.view(),
                 self.totals.view(),
                 &self.sample_ids,
                 Start::Cold,
+                &self.medium,
                 &mut batch,
             ) {
                 batch.free.fill(0.0);
@@ -237,6 +244,7 @@ impl<'a> VarproProblem<'a> {
             absorbing: self.absorbing.clone(),
             spectra_temperature: self.spectra_temperature,
             reduced: self.reduced.select(ndarray::Axis(0), rows),
+            medium: self.medium.select(rows),
             batch: Mutex::new(SpeciationBatch::new(model, rows.len(), Derivatives::Skip)),
         }
     }
