@@ -94,6 +94,15 @@ fn a_density_table_of_water_gives_the_fit_of_the_built_in_water_density() {
     let basis = &tabled["data"]["config"]["fit"]["concentrations"]["thermal_expansion"];
     assert_eq!(basis["kind"], "table", "{basis}");
     assert_eq!(basis["name"], "water.csv");
+    // ... and lists it among the checksummed inputs
+    let inputs = tabled["data"]["inputs"].as_array().unwrap();
+    assert!(
+        inputs
+            .iter()
+            .any(|i| i["path"].as_str().is_some_and(|p| p.ends_with("water.csv"))
+                && i["sha256"].as_str().is_some_and(|h| h.len() == 64)),
+        "{inputs:?}"
+    );
 
     // the same through the run configuration file
     let config = dir.path().join("fit.toml");

@@ -921,6 +921,8 @@ struct SetRunConfig {
     /// Candidate models fitted beside the main one (relative to the set folder).
     #[serde(default)]
     candidates: Vec<PathBuf>,
+    /// Density table for thermal expansion (relative to the set folder).
+    density_table: Option<PathBuf>,
 }
 
 /// The run configuration of a set, with every path resolved, and the extra files it depends on
@@ -960,14 +962,17 @@ fn plan(set: &DataSet, root: &Path, shared: &Shared) -> Result<(FitRunConfig, Ve
                 None => conventional(),
             };
             let candidates: Vec<PathBuf> = c.candidates.iter().map(|p| anchored(&set.folder, p)).collect();
+            let density_table = c.density_table.map(|p| anchored(&set.folder, &p));
             let mut depends_on = vec![path.clone()];
             depends_on.extend(candidates.iter().cloned());
+            depends_on.extend(density_table.iter().cloned());
             let config = FitRunConfig {
                 data,
                 model: model(c.model)?,
                 preprocess: c.preprocess.unwrap_or_default(),
                 fit: c.fit.unwrap_or_default(),
                 candidates,
+                density_table: density_table.clone(),
             };
             Ok((config, depends_on))
         }
@@ -978,6 +983,7 @@ fn plan(set: &DataSet, root: &Path, shared: &Shared) -> Result<(FitRunConfig, Ve
                 preprocess: shared.settings.preprocess.clone(),
                 fit: shared.settings.fit.clone(),
                 candidates: Vec::new(),
+                density_table: None,
             };
             Ok((config, shared.settings_file.iter().cloned().collect()))
         }

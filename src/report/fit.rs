@@ -41,6 +41,11 @@ pub struct FitRunConfig {
     /// (see [`ModelComparison`]).
     #[serde(default, skip_serializing_if = "Vec::is_empty")]
     pub candidates: Vec<PathBuf>,
+    /// Density of the solvent or brine (CSV: `temperature_C` or `temperature_K`,
+    /// `density_kg_m3`): when given, the totals scale with it between preparation and
+    /// measurement (thermal expansion), whatever `fit.concentrations` says.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub density_table: Option<PathBuf>,
 }
 
 /// One input file with its SHA-256 checksum, so a report names exactly what it was made from.
@@ -268,6 +273,14 @@ pub fn run_fit(config: &FitRunConfig) -> Result<(FitReport, SpectraSet)> {
         .map(|p| checksum(p))
         .collect::<Result<Vec<_>>>()?;
     inputs.push(checksum(&config.model)?);
+    let mut config = config.clone();
+    if let Some(path) = &config.density_table {
+        inputs.push(checksum(path)?);
+        let table = crate::thermo::DensityTable::read_csv(path)?;
+        config.fit.concentrations =
+            hard::ConcentrationBasis::ThermalExpansion(crate::thermo::SolventDensity::Table(table));
+    }
+    let config = &config;
     let model = read_model(&config.model)?;
     let set = load(&config.data)?;
     let (set, preprocessing) = config.preprocess.clone().check()?.apply(&set)?;

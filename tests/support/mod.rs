@@ -102,5 +102,6 @@ pub fn write_inputs(dir: &Path, model_text: &str, species: &[&str]) -> FitRunCon
         preprocess: Default::default(),
         fit: Default::default(),
         candidates: Vec::new(),
+        density_table: None,
     }
 }

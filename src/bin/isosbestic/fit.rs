@@ -5,7 +5,7 @@ use clap::{Args, ValueEnum};
 use isosbestic::report::fit::{FitRunConfig, run_fit, write_fit_outputs, write_fit_page};
 use isosbestic::resolve::hard::{Baseline, ConcentrationBasis, SpectraTemperature};
 use isosbestic::thermo::{
-    ActivityCorrection, ConcentrationScale, Davies, DensityTable, ExtendedDebyeHuckel, SolventDensity,
+    ActivityCorrection, ConcentrationScale, Davies, ExtendedDebyeHuckel, SolventDensity,
 };
 use std::path::{Path, PathBuf};
 use std::process::ExitCode;
@@ -161,6 +161,7 @@ fn config_from(args: &FitArgs) -> isosbestic::Result<FitRunConfig> {
                 preprocess: Default::default(),
                 fit: Default::default(),
                 candidates: Vec::new(),
+                density_table: None,
             }
         }
     };
@@ -192,7 +193,10 @@ fn config_from(args: &FitArgs) -> isosbestic::Result<FitRunConfig> {
         };
     }
     if let Some(path) = &args.density_table {
-        config.fit.concentrations = density_table_expansion(path)?;
+        config.density_table = Some(path.clone());
+    } else if args.expansion.is_some() {
+        // an explicit --expansion replaces a density table from the configuration file
+        config.density_table = None;
     }
     if let Some(a) = args.activity {
         config.fit.activity = match a {
@@ -223,27 +227,9 @@ fn config_from(args: &FitArgs) -> isosbestic::Result<FitRunConfig> {
     Ok(config)
 }
 
-/// Thermal expansion with the density table in `path`.
-fn density_table_expansion(path: &Path) -> isosbestic::Result<ConcentrationBasis> {
-    let table = DensityTable::read_csv(path)?;
-    Ok(ConcentrationBasis::ThermalExpansion(SolventDensity::Table(table)))
-}
-
-/// Parses a run configuration. A top-level `density_table = "<CSV>"` (a path, relative to the
-/// folder the command runs in) is read here and becomes thermal expansion with that table.
+/// Parses a run configuration (messages keep the file's line numbers).
 fn parse_config(path: &Path, text: &str) -> isosbestic::Result<FitRunConfig> {
-    let bad = |e: &dyn std::fmt::Display| crate::usage(format!("{}: {e}", path.display()));
-    let mut table: toml::Table = text.parse().map_err(|e| bad(&e))?;
-    let Some(value) = table.remove("density_table") else {
-        // the common case: parse the text itself so messages keep their line numbers
-        return toml::from_str::<FitRunConfig>(text).map_err(|e| bad(&e));
-    };
-    let toml::Value::String(file) = value else {
-        return Err(bad(&"density_table must be the path of a CSV file, as a string"));
-    };
-    let mut config: FitRunConfig = toml::Value::Table(table).try_into().map_err(|e| bad(&e))?;
-    config.fit.concentrations = density_table_expansion(Path::new(&file))?;
-    Ok(config)
+    toml::from_str::<FitRunConfig>(text).map_err(|e| crate::usage(format!("{}: {e}", path.display())))
 }
 
 pub fn run(args: &FitArgs) -> isosbestic::Result<ExitCode> {
