@@ -62,3 +62,56 @@ pub fn metal_ligand_model(
         .and_then(|m| m.check())
         .expect("a valid generated model")
 }
+
+/// A small simulation plan for examples and tests: 8 temperatures from 10 to 66 °C, 400–700 nm
+/// every 10 nm, two series (metal 0.01 mol/L with the ligand at 0.03 and 0.3 mol/L), noise
+/// 1e-3 AU, and one Gaussian band per absorbing species (width 30 nm): the metal at 450 nm
+/// (ε 10), the k-th complex of `complexes` at 520 + 80·k nm (ε 80).
+///
+/// # Examples
+/// ```
+/// use isosbestic::testing::{metal_ligand_model, small_plan};
+/// let model = metal_ligand_model("M", "X", &[(1, 1.0, 20e3)], None);
+/// let sim = isosbestic::simulate::simulate(&model, &small_plan("M", "X", &["MX"]))?;
+/// assert_eq!(sim.set.n_samples(), 16);
+/// assert_eq!(sim.set.n_wavelengths(), 31);
+/// # Ok::<(), Box<dyn std::error::Error>>(())
+/// ```
+pub fn small_plan(metal: &str, ligand: &str, complexes: &[&str]) -> crate::simulate::SimulationPlan {
+    use crate::simulate::{Band, Noise, PureSpectrum, SeriesPlan, SimulationPlan};
+    let band = |centre_nm: f64, height: f64| Band {
+        centre_nm,
+        width_nm: 30.0,
+        height,
+        shift_nm_per_k: 0.0,
+    };
+    let mut spectra = vec![PureSpectrum {
+        species: metal.into(),
+        bands: vec![band(450.0, 10.0)],
+    }];
+    spectra.extend(complexes.iter().enumerate().map(|(k, name)| PureSpectrum {
+        species: (*name).into(),
+        bands: vec![band(520.0 + 80.0 * k as f64, 80.0)],
+    }));
+    SimulationPlan {
+        seed: 1,
+        first_nm: 400.0,
+        last_nm: 700.0,
+        step_nm: 10.0,
+        temperatures_c: (0..8).map(|k| 10.0 + 8.0 * k as f64).collect(),
+        path_cm: 1.0,
+        preparation_temperature_c: 25.0,
+        thermal_expansion: false,
+        noise: Noise::Absorbance { sd_au: 1e-3 },
+        offset_sd_au: 0.0,
+        slope_sd_au_per_100nm: 0.0,
+        series: [0.03, 0.3]
+            .iter()
+            .map(|&x| SeriesPlan {
+                label: format!("{ligand}{x}"),
+                totals_m: [(metal.to_string(), 0.01), (ligand.to_string(), x)].into(),
+            })
+            .collect(),
+        spectra,
+    }
+}

@@ -266,6 +266,30 @@ pub struct FitReport {
 /// Unreadable or invalid inputs, invalid settings, or a fit that cannot be set up. A fit that
 /// runs but does not converge is returned with a [`Diagnostic::NotConverged`].
 pub fn run_fit(config: &FitRunConfig) -> Result<(FitReport, SpectraSet)> {
+    run_fit_with_progress(config, &|_| {})
+}
+
+/// Progress of [`run_fit_with_progress`]: which model is being fitted (0 is the main model,
+/// 1… the candidates) and what its fit is doing.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub struct RunProgress {
+    /// Index of the model being fitted (0: the main model).
+    pub model: usize,
+    /// Number of models in the run (1 + candidates).
+    pub models: usize,
+    /// The fit's own progress.
+    pub fit: hard::FitProgress,
+}
+
+/// [`run_fit`] with a progress callback (the binary draws a bar from it).
+///
+/// # Errors
+/// As [`run_fit`].
+pub fn run_fit_with_progress(
+    config: &FitRunConfig,
+    progress: &dyn Fn(RunProgress),
+) -> Result<(FitReport, SpectraSet)> {
+    let models = 1 + config.candidates.len();
     let mut inputs = config
         .data
         .paths()
@@ -284,10 +308,16 @@ pub fn run_fit(config: &FitRunConfig) -> Result<(FitReport, SpectraSet)> {
     let model = read_model(&config.model)?;
     let set = load(&config.data)?;
     let (set, preprocessing) = config.preprocess.clone().check()?.apply(&set)?;
-    let fit = hard::fit(&set, &model, &config.fit)?;
+    let fit = hard::fit_with_progress(&set, &model, &config.fit, &|fit| {
+        progress(RunProgress {
+            model: 0,
+            models,
+            fit,
+        })
+    })?;
     let diagnostics = diagnose(&set, &fit, &config.fit);
     let vant_hoff = vant_hoff_table(&fit, &model, &set);
-    let model_comparison = fit_candidates(config, &set, &model, &fit, &mut inputs)?;
+    let model_comparison = fit_candidates(config, &set, &model, &fit, &mut inputs, progress)?;
     let report = FitReport {
         software: format!("isosbestic {}", env!("CARGO_PKG_VERSION")),
         inputs,
@@ -314,6 +344,7 @@ fn fit_candidates(
     model: &ValidModel,
     fit: &HardFit,
     inputs: &mut Vec<InputFile>,
+    progress: &dyn Fn(RunProgress),
 ) -> Result<Option<ModelComparison>> {
     if config.candidates.is_empty() {
         return Ok(None);
@@ -327,9 +358,20 @@ fn fit_candidates(
         inputs.push(checksum(path)?);
         models.push(read_model(path)?);
     }
+    let n_models = 1 + models.len();
     let results: Vec<std::result::Result<HardFit, String>> = models
         .iter()
-        .map(|m| hard::fit(set, m, &config.fit).map_err(|e| e.to_string()))
+        .enumerate()
+        .map(|(k, m)| {
+            hard::fit_with_progress(set, m, &config.fit, &|fit| {
+                progress(RunProgress {
+                    model: k + 1,
+                    models: n_models,
+                    fit,
+                })
+            })
+            .map_err(|e| e.to_string())
+        })
         .collect();
     let mut fitted = vec![FittedCandidate {
         name: &names[0],

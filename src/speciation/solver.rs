@@ -1211,7 +1211,7 @@ impl Medium {
             }
         };
         Medium {
-            activity: self.activity.clone(),
+            activity: self.activity,
             temperatures_k: pick(&self.temperatures_k),
             background_ionic_strength: pick(&self.background_ionic_strength),
             kg_solvent_per_litre: self.kg_solvent_per_litre.as_deref().map(pick),

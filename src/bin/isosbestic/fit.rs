@@ -2,7 +2,7 @@
 
 use crate::input::DataArgs;
 use clap::{Args, ValueEnum};
-use isosbestic::report::fit::{FitRunConfig, run_fit, write_fit_outputs, write_fit_page};
+use isosbestic::report::fit::{FitRunConfig, write_fit_outputs, write_fit_page};
 use isosbestic::resolve::hard::{Baseline, ConcentrationBasis, SpectraTemperature};
 use isosbestic::thermo::{
     ActivityCorrection, ConcentrationScale, Davies, ExtendedDebyeHuckel, SolventDensity,
@@ -60,7 +60,7 @@ enum ScaleArg {
 #[command(after_help = "Examples:\n  \
     isosbestic fit --config data/demo/fit.toml --out results/demo\n  \
     isosbestic fit --spectra s.csv --samples t.csv --model m.toml --baseline offset --expansion water --out results\n  \
-    isosbestic fit --config run.toml --candidate with_dcp.toml --candidate three_species.toml --out ranked\n\
+    isosbestic fit --config run.toml --candidate with_dcp.toml --candidate three_species.toml --out ranked\n  \
     isosbestic fit --config fit.toml --density-table brine.csv --out results\n\n\
     A configuration file holds every option (see data/demo/fit.toml); flags given on the command\n\
     line override it. Outputs go to --out; existing outputs are kept unless --force is given,\n\
@@ -234,7 +234,7 @@ fn parse_config(path: &Path, text: &str) -> isosbestic::Result<FitRunConfig> {
 
 pub fn run(args: &FitArgs) -> isosbestic::Result<ExitCode> {
     let config = config_from(args)?;
-    let (report, set) = run_fit(&config)?;
+    let (report, set) = run_fit_with_bar(args, &config)?;
     write_fit_outputs(&args.out, &report, args.force)?;
     write_fit_page(&args.out, &report, &set, &crate::utc_timestamp(), args.force)?;
     if args.json {
@@ -252,6 +252,39 @@ pub fn run(args: &FitArgs) -> isosbestic::Result<ExitCode> {
     } else {
         ExitCode::from(crate::EXIT_CHECK_FAILED)
     })
+}
+
+/// The fit (and its candidate models) with a progress bar on stderr for the start search and
+/// the solver runs (hidden when stderr is not a terminal or with --quiet/--json).
+fn run_fit_with_bar(
+    args: &FitArgs,
+    config: &FitRunConfig,
+) -> isosbestic::Result<(isosbestic::report::fit::FitReport, isosbestic::data::SpectraSet)> {
+    use indicatif::{ProgressBar, ProgressDrawTarget, ProgressStyle};
+    use isosbestic::report::fit::{RunProgress, run_fit_with_progress};
+    use isosbestic::resolve::hard::FitProgress;
+    use std::io::IsTerminal;
+    let bar = ProgressBar::new(0);
+    if args.quiet || args.json || !std::io::stderr().is_terminal() {
+        bar.set_draw_target(ProgressDrawTarget::hidden());
+    } else if let Ok(style) = ProgressStyle::with_template("fit {prefix} {bar:30} {pos}/{len} {msg}") {
+        bar.set_style(style);
+    }
+    let progress = |p: RunProgress| {
+        bar.set_prefix(format!("model {}/{}", p.model + 1, p.models));
+        match p.fit {
+            FitProgress::StartsScored { done, total } => {
+                bar.set_length(total as u64);
+                bar.set_position(done as u64);
+                bar.set_message("starting points scored");
+            }
+            FitProgress::SolverRun { run } => bar.set_message(format!("solver run {run}")),
+            _ => bar.set_message("summarising"),
+        }
+    };
+    let result = run_fit_with_progress(config, &progress);
+    bar.finish_and_clear();
+    result
 }
 
 /// Bootstrap of a finished fit, with a progress bar on stderr (hidden when stderr is not a

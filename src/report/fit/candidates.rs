@@ -1,4 +1,4 @@
-//! Ranking candidate models fitted to the same data (issue 4 §4): AIC, BIC and F-tests of
+//! Ranking candidate models fitted to the same data: AIC, BIC and F-tests of
 //! nested pairs.
 //!
 //! Every candidate is fitted with the same data, preprocessing and fit settings; only the

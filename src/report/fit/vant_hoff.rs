@@ -58,7 +58,7 @@ pub struct VantHoffPoint {
     pub temperature_k: f64,
     /// 1/T, K⁻¹.
     pub inverse_temperature_per_k: f64,
-    /// ln β of the global fit at T (natural log; β in the molar standard state).
+    /// ln β of the global fit at T (natural log; β on the fit's concentration scale, mol/L or mol/kg).
     pub ln_k_global: f64,
     /// Lower end of its 95 % band (None when the standard error is undefined, e.g. a parameter
     /// of the species ended on its bound).

@@ -28,12 +28,17 @@
 //! (1985) 95; Maeder & Zuberbühler, Anal. Chem. 62 (1990) 2220).
 //!
 //! ## Data reduction (exact)
-//! D̃ = D(I − P_W) is computed once and replaced by G = D̃·V, where V (wavelengths × r) holds the
-//! right singular vectors of D̃ with non-zero singular values (r ≤ number of samples). Because
-//! every row of R and of ∂R/∂θ lies in the row space of D̃, ‖R‖ and JᵀJ are unchanged: the
-//! reduction is exact, not an approximation, and after it each iteration costs nothing per
-//! wavelength. It is always safe with uniform weights; truncating to fewer singular vectors
-//! than the rank of D̃ would not be, and is not done.
+//! D̃ = D(I − P_W) enters the fit only through D̃D̃ᵀ (samples × samples), formed in one pass over
+//! D and factored by pivoted Cholesky as G·Gᵀ (G samples × r, r ≤ number of samples): G = D̃·V
+//! for some orthonormal V, so ‖Q_X D̃‖, Jᵀr and JᵀJ are unchanged. The reduction is exact, not
+//! an approximation, and after it each iteration costs nothing per wavelength. It is always safe
+//! with uniform weights (per-element weights or a mask would not factor through D̃D̃ᵀ); dropping
+//! directions of D̃ above rounding level would not be safe and is not done.
+//!
+//! ## Normal equations
+//! The solver ([`lm::minimise_normal_equations`]) receives the cost ½‖R‖² and, at accepted points,
+//! Jᵀr and JᵀJ of the full Golub–Pereyra Jacobian (both of its terms), formed from R = Q_X G and
+//! GᵀX⁺ᵀ without the samples·r × p Jacobian itself (see `problem.rs`).
 //!
 //! ## Baselines and spectra
 //! An offset common to all samples in proportion to one species' concentration cannot be told
@@ -755,6 +760,59 @@ fn build_problem<'a>(
 /// or when the solver fails outright. A fit that runs but does not converge is returned as
 /// `Ok` with its [`HardFit::termination`] saying so.
 pub fn fit(set: &SpectraSet, model: &ValidModel, params: &HardFitParams) -> Result<HardFit, HardFitError> {
+    fit_with_progress(set, model, params, &|_| {})
+}
+
+/// What a running fit is doing, for progress displays ([`fit_with_progress`]).
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+#[non_exhaustive]
+pub enum FitProgress {
+    /// `done` of `total` starting points scored.
+    StartsScored {
+        /// Points scored so far.
+        done: usize,
+        /// Points to score.
+        total: usize,
+    },
+    /// A Levenberg–Marquardt run began (`run` counts from 1; the last may be the mirror side).
+    SolverRun {
+        /// Which run.
+        run: usize,
+    },
+    /// The fit is summarising (covariance, spectra, alternatives).
+    Summarising,
+}
+
+/// [`fit`] with a progress callback, called from the fitting thread (the library never prints;
+/// the binary draws a bar from these events).
+///
+/// ```
+/// use isosbestic::resolve::hard::{self, FitProgress, HardFitParams};
+/// use isosbestic::simulate::simulate;
+/// use isosbestic::testing::{metal_ligand_model, small_plan};
+/// use std::sync::Mutex;
+/// let model = metal_ligand_model("M", "X", &[(1, 1.0, 20e3)], None);
+/// let sim = simulate(&model, &small_plan("M", "X", &["MX"]))?;
+/// let events = Mutex::new(Vec::new());
+/// let fit = hard::fit_with_progress(&sim.set, &model, &HardFitParams::default(), &|e| {
+///     events.lock().unwrap().push(e)
+/// })?;
+/// let events = events.into_inner().unwrap();
+/// assert!(matches!(events.first(), Some(FitProgress::StartsScored { done: 1, .. })));
+/// assert!(events.contains(&FitProgress::SolverRun { run: 1 }));
+/// assert_eq!(events.last(), Some(&FitProgress::Summarising));
+/// assert!(fit.termination.converged());
+/// # Ok::<(), Box<dyn std::error::Error>>(())
+/// ```
+///
+/// # Errors
+/// As [`fit`].
+pub fn fit_with_progress(
+    set: &SpectraSet,
+    model: &ValidModel,
+    params: &HardFitParams,
+    progress: &dyn Fn(FitProgress),
+) -> Result<HardFit, HardFitError> {
     let free = free_parameters(model);
     let (problem, n_linear) = build_problem(set, model, &free, params)?;
     let nw = set.n_wavelengths();
@@ -763,7 +821,7 @@ pub fn fit(set: &SpectraSet, model: &ValidModel, params: &HardFitParams) -> Resu
         .map(|fp| model.species()[fp.species].law.parameters()[fp.parameter].value)
         .collect();
     let (lower, upper) = bounds(&free, params);
-    let starts = start_points(&problem, &free, &start0, params)?;
+    let starts = start_points(&problem, &free, &start0, params, progress)?;
     let starts_tried = starts.len();
     let solver = LmParams {
         lower: lower.clone(),
@@ -773,7 +831,10 @@ pub fn fit(set: &SpectraSet, model: &ValidModel, params: &HardFitParams) -> Resu
     // The solver runs from the best start; the next two are tried only if it does not converge.
     let mut best: Option<lm::LmOutcome> = None;
     let mut last_error = None;
+    let mut runs = 0;
     for start in starts.iter().take(3) {
+        runs += 1;
+        progress(FitProgress::SolverRun { run: runs });
         match lm::minimise_normal_equations(&problem, start.clone(), solver.clone()) {
             Ok(out) => {
                 if best.as_ref().is_none_or(|b| out.cost < b.cost) {
@@ -799,8 +860,10 @@ pub fn fit(set: &SpectraSet, model: &ValidModel, params: &HardFitParams) -> Resu
         starts
             .iter()
             .find(|x| signs(x) != best_signs)
+            .inspect(|_| progress(FitProgress::SolverRun { run: runs + 1 }))
             .and_then(|x| lm::minimise_normal_equations(&problem, x.clone(), solver.clone()).ok())
     };
+    progress(FitProgress::Summarising);
     let finish = |o: lm::LmOutcome| -> Result<HardFit, HardFitError> {
         let mut fit = summarise(set, model, &problem, &free, o, params, nw, n_linear, starts_tried)?;
         fit.at_bounds = free
@@ -1002,6 +1065,7 @@ fn start_points(
     free: &[FreeParameter],
     start0: &Array1<f64>,
     params: &HardFitParams,
+    progress: &dyn Fn(FitProgress),
 ) -> Result<Vec<Array1<f64>>, HardFitError> {
     use crate::resolve::lm::GaussNewtonProblem;
     use rand::Rng;
@@ -1055,9 +1119,15 @@ fn start_points(
     } else {
         problem
     };
+    let total_points = candidates.len();
     let mut scored: Vec<(f64, Array1<f64>)> = candidates
         .into_iter()
-        .filter_map(|x| {
+        .enumerate()
+        .filter_map(|(k, x)| {
+            progress(FitProgress::StartsScored {
+                done: k + 1,
+                total: total_points,
+            });
             let c = scorer.cost(&x).ok()?;
             c.is_finite().then_some((c, x))
         })

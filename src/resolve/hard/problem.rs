@@ -28,7 +28,7 @@ pub(crate) struct VarproProblem<'a> {
     pub absorbing: Vec<usize>,
     /// Polynomial order of ε(T) and its reference temperature.
     pub spectra_temperature: SpectraTemperature,
-    /// The reduced data G = D (I − P_W) V (samples × r), exact in the retained subspace.
+    /// The reduced data G (samples × r) with G·Gᵀ = D̃·D̃ᵀ, D̃ = D(I − P_W) (exact).
     pub reduced: Array2<f64>,
     /// Warm-start speciation buffer.
     pub batch: Mutex<SpeciationBatch>,
