@@ -20,9 +20,14 @@ echo "== 3. fit: global fit of ΔH°, ΔS° to all 54 spectra (run configuration
 "$bin" fit --config data/demo/fit.toml --out out/demo --force
 
 echo
-echo "== 4. vanthoff: a K(T) table fitted on its own"
+echo "== 4. compare: the fitted aqua-ion spectrum against reference absorptivities (data/reference/)"
+"$bin" compare --fit out/demo --reference data/reference/absorptivities.csv --map '[Ni(H2O)6]2+=Ni' --out out/demo --force
+
+echo
+echo "== 5. vanthoff: a K(T) table fitted on its own"
 "$bin" vanthoff --k-table data/demo/k_table.csv --at-c 25
 
 echo
-echo "Reports and tables: out/demo/ (report.json, parameters.csv, thermodynamics.csv,"
-echo "concentrations.csv, pure_spectra.csv). The invented true values are in data/demo/truth.json."
+echo "Reports and tables: out/demo/ (report.html with every figure, vant_hoff.svg, report.json,"
+echo "parameters.csv, thermodynamics.csv, concentrations.csv, pure_spectra.csv, vant_hoff_points.csv,"
+echo "comparison.csv). The invented true values are in data/demo/truth.json."

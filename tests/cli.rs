@@ -198,7 +198,9 @@ fn simulate_then_fit_recovers_the_planned_parameters() {
 
 #[test]
 fn every_subcommand_has_help_with_examples() {
-    for sub in ["inspect", "fit", "resolve", "vanthoff", "simulate"] {
+    for sub in [
+        "inspect", "fit", "resolve", "vanthoff", "simulate", "compare", "batch",
+    ] {
         let (code, out, _) = run(bin().args([sub, "--help"]));
         assert_eq!(code, 0);
         assert!(out.contains("Example"), "{sub}: {out}");
