@@ -97,8 +97,25 @@ fn the_fit_outputs_hold_the_van_t_hoff_table_and_the_page_the_new_figures() {
     let efa = std::fs::read_to_string(out.join("evolving_factors.svg")).unwrap();
     assert!(efa.contains("forward, factor 1") && efa.contains("backward, factor 2"));
     let page = std::fs::read_to_string(out.join("report.html")).unwrap();
-    assert_eq!(page.matches("<svg").count(), FIT_PAGE_OUTPUTS.len() - 1);
+    assert_eq!(page.matches("<svg").count(), FIT_PAGE_OUTPUTS.len() - 2);
     assert!(page.contains("ΔH° of MX, classic direct"));
+    // residuals.csv: one row per wavelength, one column per sample; its sum of squares is the
+    // fit's RSS (computed in the reduced space) up to the CSV's rounding
+    let residuals = std::fs::read_to_string(out.join("residuals.csv")).unwrap();
+    let mut rows = residuals.lines();
+    assert_eq!(rows.next().unwrap().split(',').count(), 1 + set.n_samples());
+    let mut rss = 0.0;
+    let mut n_rows = 0;
+    for row in rows {
+        n_rows += 1;
+        rss += row
+            .split(',')
+            .skip(1)
+            .map(|v| v.parse::<f64>().unwrap().powi(2))
+            .sum::<f64>();
+    }
+    assert_eq!(n_rows, set.n_wavelengths());
+    approx::assert_relative_eq!(rss, report.fit.rss, max_relative = 1e-6);
     let summary = report.to_string();
     assert!(summary.contains("van 't Hoff comparison for MX"), "{summary}");
     assert!(summary.contains("classic mass balance"));

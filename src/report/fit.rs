@@ -605,8 +605,8 @@ pub fn write_fit_outputs(dir: &Path, report: &FitReport, force: bool) -> Result<
     Ok(targets)
 }
 
-/// Names of the figures and page [`write_fit_page`] writes.
-pub const FIT_PAGE_OUTPUTS: [&str; 8] = [
+/// Names of the figures, page and residual table [`write_fit_page`] writes.
+pub const FIT_PAGE_OUTPUTS: [&str; 9] = [
     "report.html",
     "measured_spectra.svg",
     "pure_spectra.svg",
@@ -615,9 +615,11 @@ pub const FIT_PAGE_OUTPUTS: [&str; 8] = [
     "singular_values.svg",
     "vant_hoff.svg",
     "evolving_factors.svg",
+    "residuals.csv",
 ];
 
-/// Writes the SVG figures and the self-contained `report.html` of a fit into `dir`.
+/// Writes the SVG figures, the self-contained `report.html` and `residuals.csv` (measured −
+/// fitted, one row per wavelength, one column per sample) of a fit into `dir`.
 ///
 /// `set` is the preprocessed set the fit was made on; `timestamp` is shown in the page header
 /// (the library reads no clock).
@@ -663,6 +665,16 @@ pub fn write_fit_page(
     for (t, svg) in targets[1..].iter().zip(figures) {
         plots::write_svg(t, svg)?;
     }
+    // residuals (measured − fitted), laid out like a spectra CSV: one row per wavelength, one
+    // column per sample
+    let mut table =
+        Table::new(std::iter::once("wavelength_nm".to_string()).chain(report.sample_ids.iter().cloned()));
+    for (j, w) in report.wavelengths_nm.iter().enumerate() {
+        table.push_row(
+            std::iter::once(format_float(*w)).chain(residuals.column(j).iter().map(|r| format_float(*r))),
+        );
+    }
+    table.write_csv(&targets[8])?;
     let mut generation = Generation::new(timestamp).with_detail("software", report.software.clone());
     for i in &report.inputs {
         generation = generation.with_detail(i.path.display().to_string(), format!("sha256 {}", i.sha256));
