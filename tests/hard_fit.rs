@@ -286,3 +286,62 @@ fn log_beta_at_the_reference_temperature_carries_the_parameter_error() {
     );
     assert!(fit.log_beta_at(&start, "nope", &[300.0], 0.95).is_none());
 }
+
+/// Masked points (saturated absorbances) leave the fit: a set with masked points at some
+/// wavelengths fits exactly as the same set without those wavelengths, whatever values the
+/// masked points hold; the spectra there come from the unmasked samples. (The reference is the
+/// same fit on the reduced wavelength grid: an exact identity, no outside value.)
+#[test]
+fn masked_wavelengths_leave_the_fit_and_their_values_do_not_matter() {
+    let truth = model(0.4, 12_000.0, -0.2, 35_000.0);
+    let mut sim = simulate(&truth, &plan(Noise::Absorbance { sd_au: 1e-3 }, 5)).unwrap();
+    let params = HardFitParams {
+        baseline: Baseline::OffsetAndSlope,
+        ..HardFitParams::default()
+    };
+    let (ns, nw) = sim.set.absorbance().dim();
+    let masked_columns = [3usize, 4, nw - 2];
+    // mask two samples at those wavelengths and give them absurd ("saturated") values
+    let mut mask = ndarray::Array2::from_elem((ns, nw), false);
+    let mut d = sim.set.absorbance().clone();
+    for &j in &masked_columns {
+        for i in [0usize, ns / 2] {
+            mask[[i, j]] = true;
+            d[[i, j]] = 4.0;
+        }
+    }
+    let mut corrupted = sim.set.with_data(sim.set.wavelengths_nm().clone(), d).unwrap();
+    corrupted.set_mask(mask.clone()).unwrap();
+    sim.set.set_mask(mask).unwrap();
+    let keep: Vec<usize> = (0..nw).filter(|j| !masked_columns.contains(j)).collect();
+    let reduced = sim
+        .set
+        .with_data(
+            sim.set.wavelengths_nm().select(ndarray::Axis(0), &keep),
+            sim.set.absorbance().select(ndarray::Axis(1), &keep),
+        )
+        .unwrap();
+    let a = hard::fit(&sim.set, &truth, &params).unwrap();
+    let b = hard::fit(&corrupted, &truth, &params).unwrap();
+    let c = hard::fit(&reduced, &truth, &params).unwrap();
+    assert_eq!(a.n_data, ns * keep.len());
+    for ((pa, pb), pc) in a.parameters.iter().zip(&b.parameters).zip(&c.parameters) {
+        approx::assert_relative_eq!(pa.value, pc.value, max_relative = 1e-9);
+        approx::assert_relative_eq!(pb.value, pc.value, max_relative = 1e-9);
+        approx::assert_relative_eq!(pa.standard_error, pc.standard_error, max_relative = 1e-7);
+    }
+    approx::assert_relative_eq!(a.rss, c.rss, max_relative = 1e-9);
+    // spectra at a masked wavelength: from the unmasked samples, close to those of its
+    // neighbours' scale and finite, and the same whatever the masked values were
+    for &j in &masked_columns {
+        for k in 0..a.spectra.ncols() {
+            assert!(a.spectra[[j, k]].is_finite() && a.spectra_standard_errors[[j, k]].is_finite());
+            approx::assert_relative_eq!(
+                a.spectra[[j, k]],
+                b.spectra[[j, k]],
+                max_relative = 1e-9,
+                epsilon = 1e-9
+            );
+        }
+    }
+}

@@ -185,9 +185,16 @@ pub fn fitted_values(
     let rank = sv.iter().filter(|&&v| v > tol).count();
     let ur = u.slice(ndarray::s![.., ..rank]);
     let mut fitted = ur.dot(&ur.t().dot(d));
-    if let Some(q) = super::baseline_basis(set.wavelengths_nm(), params.baseline) {
-        let rest = d - &fitted;
-        fitted += &rest.dot(&q).dot(&q.t());
+    // The baselines are fitted where the global fit was (wavelengths without a masked point)
+    // and evaluated at every wavelength.
+    let used = set.unmasked_wavelength_indices();
+    let wl = set.wavelengths_nm();
+    let wl_used = wl.select(ndarray::Axis(0), &used);
+    if let Some(q) = super::baseline_basis(&wl_used, params.baseline) {
+        let rest = (d - &fitted).select(ndarray::Axis(1), &used);
+        let coefficients = rest.dot(&q); // samples × baseline terms
+        let shapes = super::baseline_shapes(wl, &wl_used, params.baseline); // wavelengths × terms
+        fitted += &coefficients.dot(&shapes.t());
     }
     Ok(fitted)
 }

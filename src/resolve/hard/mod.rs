@@ -32,8 +32,11 @@
 //! D and factored by pivoted Cholesky as G·Gᵀ (G samples × r, r ≤ number of samples): G = D̃·V
 //! for some orthonormal V, so ‖Q_X D̃‖, Jᵀr and JᵀJ are unchanged. The reduction is exact, not
 //! an approximation, and after it each iteration costs nothing per wavelength. It is always safe
-//! with uniform weights (per-element weights or a mask would not factor through D̃D̃ᵀ); dropping
-//! directions of D̃ above rounding level would not be safe and is not done.
+//! with uniform weights (per-element weights would not factor through D̃D̃ᵀ); dropping
+//! directions of D̃ above rounding level would not be safe and is not done. Masked points
+//! (e.g. saturated absorbances) cannot be left out one by one either: the fit leaves out every
+//! wavelength at which any sample is masked (`n_data` counts what was used), and the spectra
+//! there are estimated afterwards from the unmasked samples only.
 //!
 //! ## Normal equations
 //! The solver ([`lm::minimise_normal_equations`]) receives the cost ½‖R‖² and, at accepted points,
@@ -62,7 +65,7 @@ use crate::speciation::{
 };
 use crate::thermo::{ActivityCorrection, ConcentrationScale, SolventDensity};
 use ndarray::{Array1, Array2};
-use ndarray_linalg::{Eigh, JobSvd, SVDDC, UPLO};
+use ndarray_linalg::{Eigh, Inverse, JobSvd, LeastSquaresSvd, SVDDC, UPLO};
 use problem::{Projection, VarproProblem, sum_sq};
 use serde::{Deserialize, Serialize};
 use std::sync::Mutex;
@@ -602,6 +605,33 @@ pub(crate) fn baseline_basis(wavelengths_nm: &Array1<f64>, baseline: Baseline) -
     Some(q)
 }
 
+/// The columns of [`baseline_basis`]`(fitted_on, baseline)` as functions of λ, evaluated at
+/// `at` (wavelengths × terms): the constant 1/√n and the centred, normalised λ of the fitted
+/// grid, extended to other wavelengths. Empty without baseline terms.
+pub(crate) fn baseline_shapes(at: &Array1<f64>, fitted_on: &Array1<f64>, baseline: Baseline) -> Array2<f64> {
+    let ncol = match baseline {
+        Baseline::None => 0,
+        Baseline::Offset => 1,
+        Baseline::OffsetAndSlope => 2,
+    };
+    let n = fitted_on.len().max(1) as f64;
+    let mean = fitted_on.mean().unwrap_or(0.0);
+    let norm = fitted_on
+        .iter()
+        .map(|l| (l - mean) * (l - mean))
+        .sum::<f64>()
+        .sqrt();
+    Array2::from_shape_fn((at.len(), ncol), |(j, c)| {
+        if c == 0 {
+            1.0 / n.sqrt()
+        } else if norm > 0.0 {
+            (at[j] - mean) / norm
+        } else {
+            0.0
+        }
+    })
+}
+
 /// The reduction G (samples × r) with G·Gᵀ = D̃·D̃ᵀ, D̃ = D(I − P_W): the Gram matrix
 /// D̃D̃ᵀ = DDᵀ − (DQ_W)(DQ_W)ᵀ from one pass over D, then its Cholesky factor with diagonal
 /// pivoting, G = Πᵀ·L (Higham, "Accuracy and Stability of Numerical Algorithms", 2nd ed., SIAM
@@ -722,9 +752,27 @@ fn build_problem<'a>(
     if !params.activity.is_none() {
         model.charges()?;
     }
-    let d = set.absorbance();
+    // Masked points (e.g. saturated absorbances) cannot enter the exact reduction one by one:
+    // the fit leaves out every wavelength at which any sample is masked.
+    let masked = set.masked_count() > 0;
+    let used = set.unmasked_wavelength_indices();
+    if used.is_empty() {
+        return Err(HardFitError::Settings(
+            "every wavelength has a masked point in some sample: nothing left to fit".into(),
+        ));
+    }
+    let selected;
+    let (d, wavelengths) = if masked {
+        selected = (
+            set.absorbance().select(ndarray::Axis(1), &used),
+            set.wavelengths_nm().select(ndarray::Axis(0), &used),
+        );
+        (&selected.0, &selected.1)
+    } else {
+        (set.absorbance(), set.wavelengths_nm())
+    };
     let (ns, nw) = d.dim();
-    let q_w = baseline_basis(set.wavelengths_nm(), params.baseline);
+    let q_w = baseline_basis(wavelengths, params.baseline);
     let nb = q_w.as_ref().map_or(0, |q| q.ncols());
     let reduced = reduce(d, q_w.as_ref())?;
     let m = absorbing.len() * (params.spectra_temperature.order() + 1);
@@ -815,7 +863,8 @@ pub fn fit_with_progress(
 ) -> Result<HardFit, HardFitError> {
     let free = free_parameters(model);
     let (problem, n_linear) = build_problem(set, model, &free, params)?;
-    let nw = set.n_wavelengths();
+    // wavelengths the fit used (all but those with a masked point)
+    let nw = set.unmasked_wavelength_indices().len();
     let start0: Array1<f64> = free
         .iter()
         .map(|fp| model.species()[fp.species].law.parameters()[fp.parameter].value)
@@ -1244,12 +1293,47 @@ fn summarise(
         });
     }
     // Spectra from the full data: S = (X⁺ D)ᵀ, standard errors σ √diag((XᵀX)⁻¹).
-    let spectra = proj.pinv.dot(set.absorbance()).t().to_owned();
+    let mut spectra = proj.pinv.dot(set.absorbance()).t().to_owned();
+    // At a wavelength the fit left out (a masked point there), the spectrum is estimated from
+    // the unmasked samples only, with its own σ√diag((X_uᵀX_u)⁻¹); NaN when they cannot
+    // determine it.
+    let mut excluded_se: Vec<(usize, Vec<f64>)> = Vec::new();
+    for j in 0..set.n_wavelengths() {
+        let rows: Vec<usize> = (0..ns).filter(|&i| !set.mask()[[i, j]]).collect();
+        if rows.len() == ns {
+            continue;
+        }
+        let x = proj.x.select(ndarray::Axis(0), &rows);
+        let y = set.absorbance().column(j).select(ndarray::Axis(0), &rows);
+        let solved = (rows.len() >= x.ncols())
+            .then(|| x.least_squares(&y).ok())
+            .flatten()
+            .filter(|ls| ls.rank as usize == x.ncols());
+        let inverse_diag = solved
+            .as_ref()
+            .and_then(|_| x.t().dot(&x).inv().ok())
+            .map(|inv| inv.diag().to_vec());
+        match (solved, inverse_diag) {
+            (Some(ls), Some(diag)) => {
+                spectra.row_mut(j).assign(&ls.solution);
+                excluded_se.push((j, diag.iter().map(|v| sigma * v.max(0.0).sqrt()).collect()));
+            }
+            _ => {
+                spectra.row_mut(j).fill(f64::NAN);
+                excluded_se.push((j, vec![f64::NAN; x.ncols()]));
+            }
+        }
+    }
     let xtx_inv_diag: Vec<f64> = (0..proj.x.ncols())
         .map(|a| proj.pinv.row(a).dot(&proj.pinv.row(a)))
         .collect();
-    let spectra_standard_errors =
-        Array2::from_shape_fn((nw, proj.x.ncols()), |(_, a)| sigma * xtx_inv_diag[a].sqrt());
+    let mut spectra_standard_errors =
+        Array2::from_shape_fn((set.n_wavelengths(), proj.x.ncols()), |(_, a)| {
+            sigma * xtx_inv_diag[a].sqrt()
+        });
+    for (j, se) in excluded_se {
+        spectra_standard_errors.row_mut(j).assign(&Array1::from(se));
+    }
     Ok(HardFit {
         parameters,
         covariance: cov,
