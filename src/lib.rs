@@ -23,7 +23,10 @@
 //! 4. [`speciation`]: equilibrium model, formation laws log β(T), mass-balance solver.
 //! 5. [`resolve`]: linear/NNLS solutions for S or C, soft (MCR-ALS) and hard (global model fit).
 //! 6. [`thermo`]: van 't Hoff and heat-capacity fits, solvent density, activity models.
-//! 7. [`report`]: result types and their CSV/JSON/SVG writers.
+//! 7. [`report`]: result types and their CSV/JSON/SVG/HTML writers; whole runs
+//!    ([`report::fit::run_fit`]: read, preprocess, fit, diagnose, rank candidate models),
+//!    fitted against reference absorptivities ([`report::compare`]) and many data sets at once
+//!    ([`report::batch`]).
 //!
 //! The library never prints; progress goes through callbacks and results are plain data.
 #![warn(missing_docs)]
