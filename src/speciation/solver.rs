@@ -632,18 +632,9 @@ impl<'m> Workspace<'m> {
         }
         let mut rhs = std::mem::take(&mut self.rhs);
         for k in 0..nsp {
-            let ck = self.c[k];
-            if !self.active_s[k] || ck <= 0.0 {
+            if !self.du_dln_beta(k, &mut rhs) {
                 continue;
             }
-            for j in 0..nc {
-                rhs[j] = if self.active_c[j] {
-                    -ck * self.a[k * nc + j]
-                } else {
-                    0.0
-                };
-            }
-            self.solve_factored(&mut rhs);
             for i in 0..nsp {
                 if !self.active_s[i] {
                     continue;
@@ -661,6 +652,24 @@ impl<'m> Workspace<'m> {
 }
 
 impl Workspace<'_> {
+    /// ∂u/∂ln βₖ at fixed activity coefficients into `rhs` (H ∂u/∂ln βₖ = −cₖ aₖ, with the
+    /// factor from [`Workspace::factor_jacobian`]); false when species k is absent or zero.
+    fn du_dln_beta(&self, k: usize, rhs: &mut [f64]) -> bool {
+        let (nc, ck) = (self.nc, self.c[k]);
+        if !self.active_s[k] || ck <= 0.0 {
+            return false;
+        }
+        for j in 0..nc {
+            rhs[j] = if self.active_c[j] {
+                -ck * self.a[k * nc + j]
+            } else {
+                0.0
+            };
+        }
+        self.solve_factored(rhs);
+        true
+    }
+
     /// Ionic strength of the current solution: I_bg + ½ Σ zᵢ² cᵢ.
     fn ionic_strength_of(&self, background: f64) -> f64 {
         background + 0.5 * self.c.iter().zip(&self.z2).map(|(c, z2)| c * z2).sum::<f64>()
@@ -845,18 +854,10 @@ impl Workspace<'_> {
         }
         let mut rhs = std::mem::take(&mut self.rhs);
         for k in 0..nsp {
-            let ck = self.c[k];
-            if !self.active_s[k] || ck <= 0.0 {
+            if !self.du_dln_beta(k, &mut rhs) {
                 continue;
             }
-            for j in 0..nc {
-                rhs[j] = if self.active_c[j] {
-                    -ck * self.a[k * nc + j]
-                } else {
-                    0.0
-                };
-            }
-            self.solve_factored(&mut rhs);
+            let ck = self.c[k];
             let pu: f64 = p.iter().zip(rhs.iter()).map(|(a, b)| a * b).sum();
             let di = (0.5 * self.z2[k] * ck + pu) / den;
             for j in 0..nc {

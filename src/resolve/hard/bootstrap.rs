@@ -32,7 +32,7 @@
 //! Replicate k draws from a ChaCha8 stream seeded with `seed` on stream k, so the result for a
 //! seed is the same whatever the number of threads and the order in which replicates finish.
 
-use super::{HardFit, HardFitError, HardFitParams, fit};
+use super::{Baseline, HardFit, HardFitError, HardFitParams, fit};
 use crate::data::SpectraSet;
 use crate::speciation::{Law, SpeciesRole, ValidModel};
 use ndarray::Array2;
@@ -187,14 +187,22 @@ pub fn fitted_values(
     let mut fitted = ur.dot(&ur.t().dot(d));
     // The baselines are fitted where the global fit was (wavelengths without a masked point)
     // and evaluated at every wavelength.
-    let used = set.unmasked_wavelength_indices();
-    let wl = set.wavelengths_nm();
-    let wl_used = wl.select(ndarray::Axis(0), &used);
-    if let Some(q) = super::baseline_basis(&wl_used, params.baseline) {
-        let rest = (d - &fitted).select(ndarray::Axis(1), &used);
-        let coefficients = rest.dot(&q); // samples × baseline terms
-        let shapes = super::baseline_shapes(wl, &wl_used, params.baseline); // wavelengths × terms
-        fitted += &coefficients.dot(&shapes.t());
+    if params.baseline != Baseline::None {
+        let wl = set.wavelengths_nm();
+        let rest = d - &fitted;
+        let (fitted_on, coefficients) = if set.masked_count() == 0 {
+            (
+                wl.clone(),
+                rest.dot(&super::baseline_shapes(wl, wl, params.baseline)),
+            )
+        } else {
+            let used = set.unmasked_wavelength_indices();
+            let wl_used = wl.select(ndarray::Axis(0), &used);
+            let q = super::baseline_shapes(&wl_used, &wl_used, params.baseline);
+            let coefficients = rest.select(ndarray::Axis(1), &used).dot(&q);
+            (wl_used, coefficients)
+        }; // coefficients: samples × baseline terms
+        fitted += &coefficients.dot(&super::baseline_shapes(wl, &fitted_on, params.baseline).t());
     }
     Ok(fitted)
 }

@@ -586,23 +586,7 @@ fn speciation_medium(
 /// normalised constant and the normalised centred λ (orthogonal to each other by construction).
 /// `None` without baseline terms.
 pub(crate) fn baseline_basis(wavelengths_nm: &Array1<f64>, baseline: Baseline) -> Option<Array2<f64>> {
-    let nw = wavelengths_nm.len();
-    let ncol = match baseline {
-        Baseline::None => return None,
-        Baseline::Offset => 1,
-        Baseline::OffsetAndSlope => 2,
-    };
-    let mut q = Array2::zeros((nw, ncol));
-    q.column_mut(0).fill(1.0 / (nw as f64).sqrt());
-    if ncol == 2 {
-        let mean = wavelengths_nm.mean().unwrap_or(0.0);
-        let centred = wavelengths_nm.mapv(|l| l - mean);
-        let norm = centred.dot(&centred).sqrt();
-        if norm > 0.0 {
-            q.column_mut(1).assign(&(centred / norm));
-        }
-    }
-    Some(q)
+    (baseline != Baseline::None).then(|| baseline_shapes(wavelengths_nm, wavelengths_nm, baseline))
 }
 
 /// The columns of [`baseline_basis`]`(fitted_on, baseline)` as functions of λ, evaluated at
@@ -707,13 +691,14 @@ fn pivoted_cholesky(mut a: Array2<f64>) -> Array2<f64> {
 }
 
 /// Sets up the variable-projection problem: totals, baseline removal, exact reduction.
-/// Returns the problem and the number of linear parameters eliminated.
+/// Returns the problem, the number of linear parameters eliminated and the number of wavelengths
+/// used (those without a masked point).
 fn build_problem<'a>(
     set: &SpectraSet,
     model: &'a ValidModel,
     free: &'a [FreeParameter],
     params: &HardFitParams,
-) -> Result<(VarproProblem<'a>, usize), HardFitError> {
+) -> Result<(VarproProblem<'a>, usize, usize), HardFitError> {
     if params.start_grid == 0 || params.start_grid.is_multiple_of(2) {
         return Err(HardFitError::Settings(format!(
             "start_grid must be odd (got {})",
@@ -798,7 +783,7 @@ fn build_problem<'a>(
         batch: Mutex::new(SpeciationBatch::new(model, ns, Derivatives::Skip)),
         medium,
     };
-    Ok((problem, n_linear))
+    Ok((problem, n_linear, nw))
 }
 
 /// Fits the free parameters of `model` to all samples of `set`.
@@ -862,9 +847,8 @@ pub fn fit_with_progress(
     progress: &dyn Fn(FitProgress),
 ) -> Result<HardFit, HardFitError> {
     let free = free_parameters(model);
-    let (problem, n_linear) = build_problem(set, model, &free, params)?;
-    // wavelengths the fit used (all but those with a masked point)
-    let nw = set.unmasked_wavelength_indices().len();
+    // nw: the wavelengths the fit uses (all but those with a masked point)
+    let (problem, n_linear, nw) = build_problem(set, model, &free, params)?;
     let start0: Array1<f64> = free
         .iter()
         .map(|fp| model.species()[fp.species].law.parameters()[fp.parameter].value)
@@ -1298,11 +1282,15 @@ fn summarise(
     // the unmasked samples only, with its own σ√diag((X_uᵀX_u)⁻¹); NaN when they cannot
     // determine it.
     let mut excluded_se: Vec<(usize, Vec<f64>)> = Vec::new();
-    for j in 0..set.n_wavelengths() {
+    let masked_columns: Vec<usize> = if set.masked_count() == 0 {
+        Vec::new()
+    } else {
+        (0..set.n_wavelengths())
+            .filter(|&j| set.mask().column(j).iter().any(|m| *m))
+            .collect()
+    };
+    for j in masked_columns {
         let rows: Vec<usize> = (0..ns).filter(|&i| !set.mask()[[i, j]]).collect();
-        if rows.len() == ns {
-            continue;
-        }
         let x = proj.x.select(ndarray::Axis(0), &rows);
         let y = set.absorbance().column(j).select(ndarray::Axis(0), &rows);
         let solved = (rows.len() >= x.ncols())
@@ -1428,7 +1416,7 @@ mod tests {
         let model = two_complex_model(0.4, 12_000.0, -0.2, 35_000.0);
         let sim = simulate(&model, &small_plan()).unwrap();
         let free = free_parameters(&model);
-        let (problem, _) = build_problem(&sim.set, &model, &free, &HardFitParams::default()).unwrap();
+        let (problem, _, _) = build_problem(&sim.set, &model, &free, &HardFitParams::default()).unwrap();
         let truth = ndarray::array![0.4, 12_000.0, -0.2, 35_000.0];
         let r = problem.apply(&truth).unwrap();
         assert!(
@@ -1491,7 +1479,7 @@ mod tests {
                 },
                 ..HardFitParams::default()
             };
-            let (problem, _) = build_problem(&sim.set, &model, &free, &params).unwrap();
+            let (problem, _, _) = build_problem(&sim.set, &model, &free, &params).unwrap();
             let theta = ndarray::array![0.7, 5_000.0, 0.3, 20_000.0];
             let r = problem.apply(&theta).unwrap();
             let j = problem.jacobian(&theta).unwrap();
