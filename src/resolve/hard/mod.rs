@@ -56,7 +56,12 @@
 //! σ²·diag((XᵀX)⁻¹) at each wavelength.
 
 pub mod bootstrap;
+// The columnwise problem is wired into `fit_with_progress` in a following step.
+#[allow(dead_code)]
+mod columnwise;
 mod problem;
+
+pub use columnwise::{SpectraSign, Weighting};
 
 use super::lm::{self, LmParams, LmTermination};
 use crate::data::SpectraSet;
