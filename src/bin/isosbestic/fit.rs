@@ -3,7 +3,7 @@
 use crate::input::DataArgs;
 use clap::{Args, ValueEnum};
 use isosbestic::report::fit::{FitRunConfig, write_fit_outputs, write_fit_page};
-use isosbestic::resolve::hard::{Baseline, ConcentrationBasis, SpectraTemperature};
+use isosbestic::resolve::hard::{Baseline, ConcentrationBasis, SpectraSign, SpectraTemperature, Weighting};
 use isosbestic::thermo::{
     ActivityCorrection, ConcentrationScale, Davies, ExtendedDebyeHuckel, SolventDensity,
 };
@@ -114,6 +114,15 @@ pub struct FitArgs {
     /// Known noise (AU): fixes the scale of the standard errors instead of the residuals.
     #[arg(long, value_name = "AU")]
     noise: Option<f64>,
+    /// Keep every fitted ε ≥ 0 (non-negative least squares at each wavelength). Needs constant
+    /// spectra and no baseline terms. Also `spectra_sign = "non_negative"` under [fit].
+    #[arg(long)]
+    non_negative_spectra: bool,
+    /// Weigh each point by 1/(FLOOR_AU² + (RELATIVE·A)²) from its measured absorbance A, for
+    /// noise that grows with the absorbance (e.g. 0.001,0.01). No baseline terms, no --noise.
+    /// Also `weighting = { kind = "absorbance", floor_au = …, relative = … }` under [fit].
+    #[arg(long, value_name = "FLOOR_AU,RELATIVE", value_parser = parse_absorbance_weights)]
+    absorbance_weights: Option<Weighting>,
     /// Keep only wavelengths in this window (nm).
     #[arg(long, num_args = 2, value_names = ["MIN_NM", "MAX_NM"])]
     window: Option<Vec<f64>>,
@@ -219,12 +228,29 @@ fn config_from(args: &FitArgs) -> isosbestic::Result<FitRunConfig> {
     if let Some(n) = args.noise {
         config.fit.known_noise = Some(n);
     }
+    if args.non_negative_spectra {
+        config.fit.spectra_sign = SpectraSign::NonNegative;
+    }
+    if let Some(w) = args.absorbance_weights {
+        config.fit.weighting = w;
+    }
     if let Some(w) = &args.window {
         config.preprocess.window = Some([w[0], w[1]]);
     }
     // candidate models: the flags add to those of the configuration file
     config.candidates.extend(args.candidates.iter().cloned());
     Ok(config)
+}
+
+/// `FLOOR_AU,RELATIVE` → absorbance weights (a usage error, exit code 2, otherwise).
+fn parse_absorbance_weights(text: &str) -> Result<Weighting, String> {
+    let bad = || format!("expected FLOOR_AU,RELATIVE (two numbers, e.g. 0.001,0.01), got '{text}'");
+    let (floor, relative) = text.split_once(',').ok_or_else(bad)?;
+    let floor_au: f64 = floor.trim().parse().map_err(|_| bad())?;
+    let relative: f64 = relative.trim().parse().map_err(|_| bad())?;
+    let w = Weighting::Absorbance { floor_au, relative };
+    w.check().map_err(|e| e.to_string())?;
+    Ok(w)
 }
 
 /// Parses a run configuration (messages keep the file's line numbers).

@@ -60,7 +60,7 @@
 //! model is right).
 
 use super::problem::VarproProblem;
-use super::{Baseline, HardFitError, SpectraTemperature};
+use super::{Baseline, HardFitError, HardFitParams, SpectraTemperature};
 use crate::resolve::linear::{NnlsParams, NnlsStatus, nnls_normal};
 use crate::resolve::lm::{GaussNewtonProblem, NormalEquations};
 use argmin::core::Error as ArgminError;
@@ -219,10 +219,6 @@ struct ColumnFit {
 
 /// The solution of the linear part at θ, for the summary of a fit.
 pub(super) struct ColumnwiseSolution {
-    /// Concentrations of every model species, samples × species.
-    pub concentrations: Array2<f64>,
-    /// The unweighted design X, samples × m.
-    pub design: Array2<f64>,
     /// ε, wavelengths × m (0 where clipped, NaN where undetermined).
     pub spectra: Array2<f64>,
     /// √diag((X_PᵀW_jX_P)⁻¹), wavelengths × m (0 where clipped, NaN where undetermined).
@@ -309,17 +305,6 @@ impl<'a> ColumnwiseProblem<'a> {
         match &self.sqrt_weights {
             None => self.weighted_data.len(),
             Some(w) => w.iter().filter(|&&v| v > 0.0).count(),
-        }
-    }
-
-    /// The same problem restricted to the samples `rows`.
-    pub fn restricted(&self, rows: &[usize]) -> ColumnwiseProblem<'a> {
-        ColumnwiseProblem {
-            base: self.base.restricted(rows),
-            weighted_data: self.weighted_data.select(Axis(0), rows),
-            sqrt_weights: self.sqrt_weights.as_ref().map(|w| w.select(Axis(0), rows)),
-            sign: self.sign,
-            nnls: self.nnls,
         }
     }
 
@@ -466,7 +451,7 @@ impl<'a> ColumnwiseProblem<'a> {
     /// # Errors
     /// When the speciation or a solve fails at θ.
     pub fn solution(&self, theta: &Array1<f64>) -> Result<ColumnwiseSolution, ArgminError> {
-        let (c, x, _) = self.designs(theta, false)?;
+        let (_, x, _) = self.designs(theta, false)?;
         let (ns, m) = x.dim();
         let nw = self.n_wavelengths();
         let columns: Vec<ColumnFit> = (0..nw)
@@ -490,8 +475,6 @@ impl<'a> ColumnwiseProblem<'a> {
             }
         }
         Ok(ColumnwiseSolution {
-            concentrations: c,
-            design: x,
             spectra,
             se_factors,
             weighted_residuals,
@@ -548,6 +531,135 @@ impl GaussNewtonProblem for ColumnwiseProblem<'_> {
             gauss_newton: total.gauss_newton,
         })
     }
+}
+
+/// True when the settings need the columnwise path (non-negative spectra or non-uniform
+/// weights).
+pub(super) fn requested(params: &HardFitParams) -> bool {
+    params.spectra_sign != SpectraSign::Free || !params.weighting.is_uniform()
+}
+
+/// The problem the solver runs on: the reduced variable projection, or the columnwise one when
+/// the settings ask for it ([`requested`]).
+pub(super) enum FitProblem<'a> {
+    /// Exact reduction (uniform weights, free spectra).
+    Reduced(VarproProblem<'a>),
+    /// Wavelength by wavelength.
+    Columnwise(ColumnwiseProblem<'a>),
+}
+
+impl<'a> FitProblem<'a> {
+    /// Wraps the reduced problem, switching to the columnwise path when `params` ask for it.
+    /// `set` must be the data set the reduced problem was built from; the columnwise path uses
+    /// all of its wavelengths, masked points weighing nothing.
+    ///
+    /// # Errors
+    /// [`HardFitError::Settings`] for settings the columnwise path cannot fit (module docs) and
+    /// for a known noise level together with absorbance weights (the weights already state
+    /// the noise).
+    pub fn new(
+        reduced: VarproProblem<'a>,
+        set: &crate::data::SpectraSet,
+        params: &HardFitParams,
+    ) -> Result<Self, HardFitError> {
+        if !requested(params) {
+            return Ok(Self::Reduced(reduced));
+        }
+        check_settings(
+            params.spectra_sign,
+            params.weighting,
+            params.baseline,
+            params.spectra_temperature,
+        )?;
+        if params.known_noise.is_some() && !params.weighting.is_uniform() {
+            return Err(HardFitError::Settings(
+                "known_noise cannot be combined with absorbance weights: the weights already state the \
+                 noise (floor_au, relative); leave known_noise out"
+                    .into(),
+            ));
+        }
+        Ok(Self::Columnwise(ColumnwiseProblem::new(
+            reduced,
+            set.absorbance().view(),
+            set.mask().view(),
+            params.spectra_sign,
+            params.weighting,
+        )?))
+    }
+
+    /// The variable-projection problem (speciation, design, and the reduced data used to rank
+    /// starting points).
+    pub fn varpro(&self) -> &VarproProblem<'a> {
+        match self {
+            Self::Reduced(p) => p,
+            Self::Columnwise(p) => &p.base,
+        }
+    }
+}
+
+impl GaussNewtonProblem for FitProblem<'_> {
+    fn cost(&self, theta: &Array1<f64>) -> Result<f64, ArgminError> {
+        match self {
+            Self::Reduced(p) => p.cost(theta),
+            Self::Columnwise(p) => p.cost(theta),
+        }
+    }
+
+    fn normal_equations(&self, theta: &Array1<f64>) -> Result<NormalEquations, ArgminError> {
+        match self {
+            Self::Reduced(p) => p.normal_equations(theta),
+            Self::Columnwise(p) => p.normal_equations(theta),
+        }
+    }
+}
+
+/// D̂ = X·Sᵀ from a fit's concentrations and spectra (samples × wavelengths): the fitted values
+/// of a columnwise fit, whose spectra are not a projection of the data.
+///
+/// # Errors
+/// [`HardFitError::Settings`] if the fit does not belong to `set`.
+pub(super) fn fitted_values(
+    set: &crate::data::SpectraSet,
+    params: &HardFitParams,
+    fit: &super::HardFit,
+) -> Result<Array2<f64>, HardFitError> {
+    let ns = set.n_samples();
+    let na = fit.absorbing_species.len();
+    let order = params.spectra_temperature.order();
+    let m = na * (order + 1);
+    if fit.concentrations.nrows() != ns || fit.spectra.dim() != (set.n_wavelengths(), m) {
+        return Err(HardFitError::Settings(format!(
+            "the fit ({} samples, spectra {:?}) does not belong to this data set ({ns} samples × {} \
+             wavelengths, {m} spectra)",
+            fit.concentrations.nrows(),
+            fit.spectra.dim(),
+            set.n_wavelengths()
+        )));
+    }
+    let cols: Vec<usize> = fit
+        .absorbing_species
+        .iter()
+        .map(|name| {
+            fit.species
+                .iter()
+                .position(|s| s == name)
+                .ok_or_else(|| HardFitError::Settings(format!("species '{name}' missing from the fit")))
+        })
+        .collect::<Result<_, _>>()?;
+    let t_eps = params.spectra_temperature.reference_k();
+    let mut x = Array2::zeros((ns, m));
+    for (i, sample) in set.samples().iter().enumerate() {
+        let dt = sample.temperature_k - t_eps;
+        let mut w = sample.path_cm;
+        for o in 0..=order {
+            for (a, &k) in cols.iter().enumerate() {
+                x[[i, o * na + a]] = w * fit.concentrations[[i, k]];
+            }
+            w *= dt;
+        }
+    }
+    // NaN spectra (wavelengths without data) give NaN fitted values there, as they should.
+    Ok(x.dot(&fit.spectra.t()))
 }
 
 #[cfg(test)]
@@ -747,9 +859,10 @@ mod tests {
         let pr = problem(&sim.set, &model, &free, SpectraSign::NonNegative, weighting);
         let theta = ndarray::array![0.7, 5_000.0, 0.3, 20_000.0];
         let sol = pr.solution(&theta).unwrap();
+        let (_, x, _) = pr.designs(&theta, false).unwrap();
         let mut clipped = 0;
         for j in 0..pr.n_wavelengths() {
-            let xw = pr.weigh(sol.design.view(), j);
+            let xw = pr.weigh(x.view(), j);
             let y = pr.weighted_data.column(j);
             // brute force over all passive sets (linear.rs, Lawson & Hanson's definition of the
             // NNLS optimum) is the outside reference

@@ -38,6 +38,13 @@
 //! wavelength at which any sample is masked (`n_data` counts what was used), and the spectra
 //! there are estimated afterwards from the unmasked samples only.
 //!
+//! ## Non-negative spectra and weights
+//! Two settings do not factor through D̃D̃ᵀ and take the columnwise path instead
+//! ([`columnwise`]): non-negative pure spectra ([`SpectraSign::NonNegative`], NNLS at each
+//! wavelength) and weights that grow with the absorbance ([`Weighting::Absorbance`]). There the
+//! linear part is solved wavelength by wavelength, masked points simply weigh nothing, and
+//! baselines are not available. Starting points are still ranked on the reduced problem.
+//!
 //! ## Normal equations
 //! The solver ([`lm::minimise_normal_equations`]) receives the cost ½‖R‖² and, at accepted points,
 //! Jᵀr and JᵀJ of the full Golub–Pereyra Jacobian (both of its terms), formed from R = Q_X G and
@@ -56,9 +63,7 @@
 //! σ²·diag((XᵀX)⁻¹) at each wavelength.
 
 pub mod bootstrap;
-// The columnwise problem is wired into `fit_with_progress` in a following step.
-#[allow(dead_code)]
-mod columnwise;
+pub mod columnwise;
 mod problem;
 
 pub use columnwise::{SpectraSign, Weighting};
@@ -69,6 +74,7 @@ use crate::speciation::{
     Derivatives, FormationLaw, Medium, SpeciationBatch, SpeciationError, StandardQuantities, ValidModel,
 };
 use crate::thermo::{ActivityCorrection, ConcentrationScale, SolventDensity};
+use columnwise::FitProblem;
 use ndarray::{Array1, Array2};
 use ndarray_linalg::{Eigh, Inverse, JobSvd, LeastSquaresSvd, SVDDC, UPLO};
 use problem::{Projection, VarproProblem, sum_sq};
@@ -198,6 +204,12 @@ pub struct HardFitParams {
     pub start_span: f64,
     /// Solver settings.
     pub solver: LmParams,
+    /// Sign of the pure spectra: free (default) or non-negative (per-wavelength NNLS, the
+    /// columnwise path of [`columnwise`]).
+    pub spectra_sign: SpectraSign,
+    /// Weights of the data points: uniform (default) or growing with the absorbance (the
+    /// columnwise path of [`columnwise`]).
+    pub weighting: Weighting,
 }
 
 impl Default for HardFitParams {
@@ -213,6 +225,8 @@ impl Default for HardFitParams {
             start_grid: 5,
             start_span: 2.0,
             solver: LmParams::default(),
+            spectra_sign: SpectraSign::Free,
+            weighting: Weighting::Uniform,
         }
     }
 }
@@ -309,6 +323,10 @@ pub struct HardFit {
     /// Distinct solutions found from the other side (ΔH° signs flipped) that fit almost as well
     /// (Δχ² < [`MIRROR_DELTA_CHI2`]): the data alone cannot choose between them.
     pub alternatives: Vec<AlternativeSolution>,
+    /// Wavelengths (nm) at which the non-negative spectra solve stopped at its iteration limit
+    /// (ε there are feasible, ≥ 0, but may not be optimal); empty otherwise.
+    #[serde(default)]
+    pub nnls_unconverged_nm: Vec<f64>,
 }
 
 /// log₁₀ β of one species at one temperature with its standard error and confidence band.
@@ -854,12 +872,15 @@ pub fn fit_with_progress(
     let free = free_parameters(model);
     // nw: the wavelengths the fit uses (all but those with a masked point)
     let (problem, n_linear, nw) = build_problem(set, model, &free, params)?;
+    // non-negative spectra or absorbance weights: the columnwise path (starts are still ranked
+    // on the reduced problem, which is cheap and ranks them well enough)
+    let problem = FitProblem::new(problem, set, params)?;
     let start0: Array1<f64> = free
         .iter()
         .map(|fp| model.species()[fp.species].law.parameters()[fp.parameter].value)
         .collect();
     let (lower, upper) = bounds(&free, params);
-    let starts = start_points(&problem, &free, &start0, params, progress)?;
+    let starts = start_points(problem.varpro(), &free, &start0, params, progress)?;
     let starts_tried = starts.len();
     let solver = LmParams {
         lower: lower.clone(),
@@ -949,11 +970,21 @@ pub fn fit_with_progress(
 }
 
 /// Singular values of the reduced residual Q_X·G at θ (those of the full residual matrix, since
-/// G·Gᵀ = D̃·D̃ᵀ).
-fn residual_singular_values(
-    problem: &VarproProblem<'_>,
-    theta: &Array1<f64>,
-) -> Result<Vec<f64>, HardFitError> {
+/// G·Gᵀ = D̃·D̃ᵀ); on the columnwise path, those of the weighted residual matrix.
+fn residual_singular_values(fitted: &FitProblem<'_>, theta: &Array1<f64>) -> Result<Vec<f64>, HardFitError> {
+    let problem = match fitted {
+        FitProblem::Reduced(p) => p,
+        FitProblem::Columnwise(cw) => {
+            let sol = cw
+                .solution(theta)
+                .map_err(|e| HardFitError::Solver(e.to_string()))?;
+            return Ok(sol
+                .weighted_residuals
+                .svddc(JobSvd::None)
+                .map(|(_, sv, _)| sv.to_vec())
+                .unwrap_or_default());
+        }
+    };
     let (c, _) = problem
         .speciate(theta, false)
         .map_err(|e| HardFitError::Solver(e.to_string()))?;
@@ -967,9 +998,12 @@ fn residual_singular_values(
 }
 
 /// The residual matrix (samples × wavelengths) of a fit: D − D̂ = Q_X·D·(I − P_W), the data
-/// minus the fitted spectra contributions and baselines (D̂ from [`bootstrap::fitted_values`]).
+/// minus the fitted spectra contributions and baselines (D̂ from [`bootstrap::fitted_values`]);
+/// for a fit with non-negative spectra or absorbance weights ([`columnwise`]), D − X·Sᵀ with
+/// the fit's own spectra (unweighted).
 ///
-/// `params` must be the settings the fit was made with (spectra temperature form, baseline).
+/// `params` must be the settings the fit was made with (spectra temperature form, baseline,
+/// spectra sign, weighting).
 ///
 /// # Errors
 /// [`HardFitError::Settings`] if the fit does not belong to `set`.
@@ -978,6 +1012,9 @@ pub fn residual_matrix(
     fit: &HardFit,
     params: &HardFitParams,
 ) -> Result<Array2<f64>, HardFitError> {
+    if columnwise::requested(params) {
+        return Ok(set.absorbance() - &columnwise::fitted_values(set, params, fit)?);
+    }
     Ok(set.absorbance() - &bootstrap::fitted_values(set, params, fit)?)
 }
 
@@ -1184,7 +1221,7 @@ fn start_points(
 fn summarise(
     set: &SpectraSet,
     model: &ValidModel,
-    problem: &VarproProblem<'_>,
+    fitted: &FitProblem<'_>,
     free: &[FreeParameter],
     out: lm::LmOutcome,
     params: &HardFitParams,
@@ -1194,17 +1231,30 @@ fn summarise(
 ) -> Result<HardFit, HardFitError> {
     let ns = set.n_samples();
     let theta = out.param.clone();
+    let problem = fitted.varpro();
     let (c, _) = problem
         .speciate(&theta, false)
         .map_err(|e| HardFitError::Solver(e.to_string()))?;
     let proj: Projection = problem
         .project(problem.design(c.view()))
         .map_err(|e| HardFitError::Solver(e.to_string()))?;
-    let r = problem.residual_matrix(&proj);
-    let rss = sum_sq(r.view());
+    // The columnwise path: weighted RSS, the points that carry weight, and the free ε (clipped
+    // ones are held on their bound) from the per-wavelength solves.
+    let columns = match fitted {
+        FitProblem::Reduced(_) => None,
+        FitProblem::Columnwise(cw) => Some((
+            cw.solution(&theta)
+                .map_err(|e| HardFitError::Solver(e.to_string()))?,
+            cw.n_data(),
+        )),
+    };
+    let (rss, n_data, n_linear) = match &columns {
+        None => (sum_sq(problem.residual_matrix(&proj).view()), ns * nw, n_linear),
+        Some((sol, n_data)) => (sol.rss, *n_data, sol.passive),
+    };
     // filled in by `fit` for the solution it keeps (an SVD per alternative is not needed)
     let residual_singular_values = Vec::new();
-    let dof = ns * nw - free.len() - n_linear;
+    let dof = n_data.saturating_sub(free.len() + n_linear).max(1);
     let residual_sd = (rss / dof as f64).sqrt();
     let sigma = params.known_noise.unwrap_or(residual_sd);
     // Cov = σ² (JᵀJ)⁻¹ from the eigen-decomposition of JᵀJ scaled to unit diagonal
@@ -1327,6 +1377,17 @@ fn summarise(
     for (j, se) in excluded_se {
         spectra_standard_errors.row_mut(j).assign(&Array1::from(se));
     }
+    let mut nnls_unconverged_nm = Vec::new();
+    if let Some((sol, _)) = columns {
+        // per-wavelength solves: σ√diag((X_PᵀW_jX_P)⁻¹) on the passive set, 0 where clipped
+        spectra_standard_errors = sol.se_factors.mapv(|f| sigma * f);
+        spectra = sol.spectra;
+        nnls_unconverged_nm = sol
+            .nnls_unconverged
+            .iter()
+            .map(|&j| set.wavelengths_nm()[j])
+            .collect();
+    }
     Ok(HardFit {
         parameters,
         covariance: cov,
@@ -1347,7 +1408,7 @@ fn summarise(
         sigma,
         design_singular_values: proj.singular_values.to_vec(),
         residual_singular_values,
-        n_data: ns * nw,
+        n_data,
         n_parameters_total: free.len() + n_linear,
         design_rank: {
             // determined directions: singular values above 1e-9 of the largest
@@ -1360,6 +1421,7 @@ fn summarise(
         at_bounds: Vec::new(),
         ceiling_violations: Vec::new(),
         alternatives: Vec::new(),
+        nnls_unconverged_nm,
     })
 }
 
