@@ -55,9 +55,20 @@
 //! ## Uncertainties
 //! Standard errors of the spectra are σ√diag((X_PᵀW_jX_P)⁻¹) on the passive set and **0** for
 //! an ε clipped at zero (it is held on its bound, as the active-set solution treats it); NaN
-//! where the weighted design does not determine them. With weights the residuals are in units
+//! where the weighted design does not determine them. The degrees of freedom count the points
+//! that carry weight minus θ minus the free (passive) ε. With weights the residuals are in units
 //! of the assumed noise, so σ̂ = √(RSS_w/ν) is a dimensionless scale factor (≈ 1 when the noise
 //! model is right).
+//!
+//! **Caveat for non-negative spectra under noise.** Where a true ε is zero, the noise decides at
+//! which wavelengths it is clipped, and that choice is correlated with the noise: θ is then
+//! biased, and its standard errors (conditional on the active set, like those of the spectra)
+//! do not cover the bias. In a simulated 1:2 system with one spectrum zero over half the range
+//! (2 series × 6 temperatures × 31 wavelengths, noise 2e-3 AU, 300 realisations) the
+//! non-negative fit had a spread of log β one third that of the free fit but a bias of about
+//! two of its standard deviations, and its nominal 95 % intervals covered the truth in 59–75 %
+//! of the realisations (free fit: 96 %). Use the constraint to keep spectra physical when the
+//! data leave them poorly determined, and compare θ with the free fit.
 
 use super::problem::VarproProblem;
 use super::{Baseline, HardFitError, HardFitParams, SpectraTemperature};
