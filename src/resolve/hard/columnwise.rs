@@ -75,7 +75,7 @@ use super::{Baseline, HardFitError, HardFitParams, SpectraTemperature};
 use crate::resolve::linear::{NnlsParams, NnlsStatus, nnls_normal};
 use crate::resolve::lm::{GaussNewtonProblem, NormalEquations};
 use argmin::core::Error as ArgminError;
-use ndarray::{Array1, Array2, ArrayView1, ArrayView2, Axis};
+use ndarray::{Array1, Array2, ArrayView2};
 use rayon::prelude::*;
 use serde::{Deserialize, Serialize};
 
@@ -193,6 +193,113 @@ pub(super) fn check_settings(
         ));
     }
     Ok(())
+}
+
+/// Thin SVD of a small, tall matrix by one-sided Jacobi rotations (Hestenes, J. Soc. Ind. Appl.
+/// Math. 6 (1958) 51; Demmel & Veselić, SIAM J. Matrix Anal. Appl. 13 (1992) 1204: accurate to
+/// working precision): the range basis and the pseudo-inverse with the rank rule of the reduced
+/// path. For the few columns of a design matrix this is many times cheaper than a LAPACK call
+/// per wavelength. Plain row-major slices: every column of A is a contiguous row of Aᵀ.
+struct SmallSvd {
+    /// Rows of the matrix.
+    n: usize,
+    /// Numerical rank.
+    rank: usize,
+    /// Uᵀ, rank × n: an orthonormal basis of the range, one basis vector per row.
+    ut: Vec<f64>,
+    /// The pseudo-inverse A⁺, k × n.
+    pinv: Vec<f64>,
+}
+
+impl SmallSvd {
+    /// From Aᵀ (k × n, row-major), consumed.
+    fn of_transposed(mut at: Vec<f64>, k: usize, n: usize) -> Self {
+        let mut v = vec![0.0; k * k]; // Vᵀ, row-major: row p is column p of V
+        for p in 0..k {
+            v[p * k + p] = 1.0;
+        }
+        let dot = |a: &[f64], b: &[f64]| a.iter().zip(b).map(|(x, y)| x * y).sum::<f64>();
+        let rotate = |m: &mut [f64], len: usize, p: usize, q: usize, c: f64, s: f64| {
+            let (head, tail) = m.split_at_mut(q * len);
+            let (rp, rq) = (&mut head[p * len..(p + 1) * len], &mut tail[..len]);
+            for (a, b) in rp.iter_mut().zip(rq.iter_mut()) {
+                let (x, y) = (*a, *b);
+                *a = c * x - s * y;
+                *b = s * x + c * y;
+            }
+        };
+        for _sweep in 0..60 {
+            let mut rotated = false;
+            for p in 0..k {
+                for q in p + 1..k {
+                    let (rp, rq) = (&at[p * n..(p + 1) * n], &at[q * n..(q + 1) * n]);
+                    let (alpha, beta, gamma) = (dot(rp, rp), dot(rq, rq), dot(rp, rq));
+                    if gamma == 0.0 || gamma.abs() <= f64::EPSILON * (alpha * beta).sqrt() {
+                        continue;
+                    }
+                    rotated = true;
+                    let zeta = (beta - alpha) / (2.0 * gamma);
+                    let t = zeta.signum() / (zeta.abs() + (1.0 + zeta * zeta).sqrt());
+                    let c = 1.0 / (1.0 + t * t).sqrt();
+                    let s = c * t;
+                    rotate(&mut at, n, p, q, c, s);
+                    rotate(&mut v, k, p, q, c, s);
+                }
+            }
+            if !rotated {
+                break;
+            }
+        }
+        // A·V = U·Σ: the rotated columns are σ_a·u_a
+        let sigma: Vec<f64> = (0..k)
+            .map(|a| {
+                let r = &at[a * n..(a + 1) * n];
+                dot(r, r).sqrt()
+            })
+            .collect();
+        let smax = sigma.iter().fold(0.0f64, |m, s| m.max(*s));
+        let tol = smax * (n.max(k) as f64) * f64::EPSILON;
+        let kept: Vec<usize> = (0..k).filter(|&a| sigma[a] > tol).collect();
+        let mut ut = vec![0.0; kept.len() * n];
+        let mut pinv = vec![0.0; k * n];
+        for (c, &a) in kept.iter().enumerate() {
+            let row = &mut ut[c * n..(c + 1) * n];
+            for (u, x) in row.iter_mut().zip(&at[a * n..(a + 1) * n]) {
+                *u = x / sigma[a];
+            }
+            // A⁺ = V Σ⁻¹ Uᵀ: row b gains V[b, a]/σ_a · u_a, V[b, a] = Vᵀ[a, b]
+            for b in 0..k {
+                let f = v[a * k + b] / sigma[a];
+                for (pi, u) in pinv[b * n..(b + 1) * n].iter_mut().zip(row.iter()) {
+                    *pi += f * u;
+                }
+            }
+        }
+        Self {
+            n,
+            rank: kept.len(),
+            ut,
+            pinv,
+        }
+    }
+
+    /// Uᵀ·z (rank).
+    fn ut_dot(&self, z: &[f64]) -> Vec<f64> {
+        self.ut
+            .chunks_exact(self.n)
+            .map(|u| u.iter().zip(z).map(|(a, b)| a * b).sum())
+            .collect()
+    }
+
+    /// z − U·(Uᵀz), in place: the part of z outside the range.
+    fn project_out(&self, z: &mut [f64]) {
+        let coef = self.ut_dot(z);
+        for (u, c) in self.ut.chunks_exact(self.n).zip(coef) {
+            for (zi, ui) in z.iter_mut().zip(u) {
+                *zi -= c * ui;
+            }
+        }
+    }
 }
 
 /// Wavelengths per parallel work item.
@@ -328,6 +435,7 @@ impl<'a> ColumnwiseProblem<'a> {
     }
 
     /// Rows of `m` scaled by the weights of wavelength j.
+    #[cfg(test)]
     fn weigh(&self, m: ArrayView2<f64>, j: usize) -> Array2<f64> {
         let mut out = m.to_owned();
         if let Some(w) = &self.sqrt_weights {
@@ -338,38 +446,85 @@ impl<'a> ColumnwiseProblem<'a> {
         out
     }
 
-    /// Solves wavelength j at the design `x`; with `dx`, also its Jacobian block.
+    /// The passive set of the NNLS at one wavelength (Bro & de Jong on XᵀWX and XᵀW d).
+    fn nnls_passive(&self, x: &Array2<f64>, sw: &[f64], y: &[f64]) -> (Vec<usize>, Option<NnlsStatus>) {
+        let m = x.ncols();
+        let mut xtx = Array2::zeros((m, m));
+        let mut xty = Array1::zeros(m);
+        for (i, row) in x.rows().into_iter().enumerate() {
+            let w = sw[i] * sw[i];
+            for a in 0..m {
+                xty[a] += sw[i] * row[a] * y[i];
+                for b in 0..=a {
+                    xtx[[a, b]] += w * row[a] * row[b];
+                }
+            }
+        }
+        for a in 0..m {
+            for b in 0..a {
+                xtx[[b, a]] = xtx[[a, b]];
+            }
+        }
+        let (s, status) = nnls_normal(xtx.view(), xty.view(), &self.nnls);
+        ((0..m).filter(|&a| s[a] > 0.0).collect(), Some(status))
+    }
+
+    /// Solves wavelength j at the design `x`; with `dx`, also its Jacobian block. Plain loops
+    /// over small slices: at a few samples × a few columns per wavelength, library calls and
+    /// allocations would cost more than the arithmetic.
     fn solve_column(
         &self,
         x: &Array2<f64>,
         dx: Option<&[Array2<f64>]>,
         j: usize,
     ) -> Result<ColumnFit, ArgminError> {
-        let ns = x.nrows();
-        let m = x.ncols();
-        let y: ArrayView1<f64> = self.weighted_data.column(j);
-        let xw = self.weigh(x.view(), j);
-        let has_data = self
-            .sqrt_weights
-            .as_ref()
-            .is_none_or(|w| w.column(j).iter().any(|&v| v > 0.0));
+        let (ns, m) = x.dim();
+        let y: Vec<f64> = self.weighted_data.column(j).to_vec();
+        let sw: Vec<f64> = match &self.sqrt_weights {
+            Some(w) => w.column(j).to_vec(),
+            None => vec![1.0; ns],
+        };
+        let has_data = sw.iter().any(|&v| v > 0.0);
+        let dot = |a: &[f64], b: &[f64]| a.iter().zip(b).map(|(x, y)| x * y).sum::<f64>();
+        // SVD of (√W X_P), built from its transpose (k × ns)
+        let factor = |passive: &[usize]| {
+            let mut at = vec![0.0; passive.len() * ns];
+            for (i, row) in x.rows().into_iter().enumerate() {
+                for (c, &a) in passive.iter().enumerate() {
+                    at[c * ns + i] = sw[i] * row[a];
+                }
+            }
+            SmallSvd::of_transposed(at, passive.len(), ns)
+        };
+        let all: Vec<usize> = (0..m).collect();
+        let mut unconstrained = None;
         let (passive, status): (Vec<usize>, Option<NnlsStatus>) = match self.sign {
-            SpectraSign::Free => ((0..m).collect(), None),
+            SpectraSign::Free => (all, None),
             SpectraSign::NonNegative => {
-                let (s, status) = nnls_normal(xw.t().dot(&xw).view(), xw.t().dot(&y).view(), &self.nnls);
-                ((0..m).filter(|&a| s[a] > 0.0).collect(), Some(status))
+                // An unconstrained solution that is already positive is the NNLS optimum (the
+                // problem is convex): most wavelengths need no active-set search.
+                let svd = factor(&all);
+                let positive = svd.pinv.chunks_exact(ns).all(|row| dot(row, &y) > 0.0);
+                if positive {
+                    unconstrained = Some(svd);
+                    (all, Some(NnlsStatus::Converged { iterations: 0 }))
+                } else {
+                    self.nnls_passive(x, &sw, &y)
+                }
             }
         };
+
+        let k = passive.len();
+        let np = dx.map_or(0, <[_]>::len);
         let mut spectrum = Array1::zeros(m);
         let mut se_factor = Array1::zeros(m);
-        let np = dx.map_or(0, <[_]>::len);
         if !has_data {
             spectrum.fill(f64::NAN);
             se_factor.fill(f64::NAN);
         }
-        if passive.is_empty() {
+        if k == 0 {
             return Ok(ColumnFit {
-                residual: y.to_owned(),
+                residual: Array1::from(y),
                 spectrum,
                 se_factor,
                 passive: 0,
@@ -377,20 +532,20 @@ impl<'a> ColumnwiseProblem<'a> {
                 jacobian: dx.map(|_| Array2::zeros((ns, np))),
             });
         }
-        let xp = xw.select(Axis(1), &passive);
-        let proj = self.base.project(xp)?;
-        let full_rank = proj.u.ncols() == passive.len();
-        let s_p = proj.pinv.dot(&y);
-        let residual = &y - &proj.u.dot(&proj.u.t().dot(&y));
+        let svd = unconstrained.unwrap_or_else(|| factor(&passive));
+        let s_p: Vec<f64> = svd.pinv.chunks_exact(ns).map(|row| dot(row, &y)).collect();
+        let mut residual = y;
+        svd.project_out(&mut residual);
         if has_data {
-            for (k, &a) in passive.iter().enumerate() {
+            for (c, &a) in passive.iter().enumerate() {
                 // Rounding can leave a just-positive NNLS value a hair below zero here.
                 spectrum[a] = match self.sign {
-                    SpectraSign::Free => s_p[k],
-                    SpectraSign::NonNegative => s_p[k].max(0.0),
+                    SpectraSign::Free => s_p[c],
+                    SpectraSign::NonNegative => s_p[c].max(0.0),
                 };
-                se_factor[a] = if full_rank {
-                    proj.pinv.row(k).dot(&proj.pinv.row(k)).sqrt()
+                let row = &svd.pinv[c * ns..(c + 1) * ns];
+                se_factor[a] = if svd.rank == k {
+                    dot(row, row).sqrt()
                 } else {
                     f64::NAN
                 };
@@ -398,21 +553,33 @@ impl<'a> ColumnwiseProblem<'a> {
         }
         let jacobian = dx.map(|dx| {
             let mut jac = Array2::zeros((ns, dx.len()));
+            let mut e = vec![0.0; ns];
+            let mut v = vec![0.0; k];
             for (p, dxp) in dx.iter().enumerate() {
-                let dxw = self.weigh(dxp.select(Axis(1), &passive).view(), j);
-                // a = Q_P ∂X_P s_P, b = X_P⁺ᵀ ∂X_Pᵀ r
-                let e = dxw.dot(&s_p);
-                let a = &e - &proj.u.dot(&proj.u.t().dot(&e));
-                let b = proj.pinv.t().dot(&dxw.t().dot(&residual));
-                jac.column_mut(p).assign(&(-(a + b)));
+                // a = Q_P ∂X_P s_P, b = X_P⁺ᵀ ∂X_Pᵀ r (both with the weights)
+                v.fill(0.0);
+                for (i, row) in dxp.rows().into_iter().enumerate() {
+                    let mut ei = 0.0;
+                    for (c, &a) in passive.iter().enumerate() {
+                        let d = sw[i] * row[a];
+                        ei += d * s_p[c];
+                        v[c] += d * residual[i];
+                    }
+                    e[i] = ei;
+                }
+                svd.project_out(&mut e);
+                for (i, ei) in e.iter().enumerate() {
+                    let bi: f64 = (0..k).map(|c| svd.pinv[c * ns + i] * v[c]).sum();
+                    jac[[i, p]] = -(ei + bi);
+                }
             }
             jac
         });
         Ok(ColumnFit {
-            residual,
+            residual: Array1::from(residual),
             spectrum,
             se_factor,
-            passive: passive.len(),
+            passive: k,
             status,
             jacobian,
         })
@@ -437,8 +604,14 @@ impl<'a> ColumnwiseProblem<'a> {
                     let col = self.solve_column(&x, dx_ref, j)?;
                     part.rss += col.residual.dot(&col.residual);
                     if let Some(jac) = col.jacobian {
-                        part.gradient += &jac.t().dot(&col.residual);
-                        part.gauss_newton += &jac.t().dot(&jac);
+                        for (row, &ri) in jac.rows().into_iter().zip(col.residual.iter()) {
+                            for a in 0..np {
+                                part.gradient[a] += row[a] * ri;
+                                for b in 0..=a {
+                                    part.gauss_newton[[a, b]] += row[a] * row[b];
+                                }
+                            }
+                        }
                     }
                 }
                 Ok(part)
@@ -453,6 +626,11 @@ impl<'a> ColumnwiseProblem<'a> {
             total.rss += p.rss;
             total.gradient += &p.gradient;
             total.gauss_newton += &p.gauss_newton;
+        }
+        for a in 0..np {
+            for b in 0..a {
+                total.gauss_newton[[b, a]] = total.gauss_newton[[a, b]];
+            }
         }
         Ok(total)
     }
@@ -898,6 +1076,46 @@ mod tests {
             );
         }
         assert!(clipped > 0, "the check must include clipped ε");
+    }
+
+    #[test]
+    fn the_jacobi_svd_gives_lapacks_projector_and_pseudo_inverse() {
+        use rand::Rng;
+        let model = model();
+        let sim = simulate(&model, &plan(Noise::None)).unwrap();
+        let free = free_parameters(&model);
+        let (base, _, _) = build_problem(&sim.set, &model, &free, &HardFitParams::default()).unwrap();
+        let mut g = crate::testing::rng(3);
+        for (n, k, rank) in [
+            (8usize, 3usize, 3usize),
+            (30, 6, 6),
+            (12, 5, 2),
+            (5, 1, 1),
+            (6, 3, 0),
+        ] {
+            // A = B·C with B n × rank and C rank × k: rank `rank`, scaled columns
+            let b = Array2::from_shape_fn((n, rank), |_| g.random_range(-1.0..1.0));
+            let c = Array2::from_shape_fn((rank, k), |(_, j)| {
+                g.random_range(-1.0..1.0) * 10f64.powi(j as i32)
+            });
+            let a = b.dot(&c);
+            let svd = SmallSvd::of_transposed(a.t().iter().copied().collect(), k, n);
+            let ours_u = Array2::from_shape_vec((svd.rank, n), svd.ut.clone())
+                .unwrap()
+                .reversed_axes();
+            let ours_pinv = Array2::from_shape_vec((k, n), svd.pinv.clone()).unwrap();
+            // LAPACK's divide-and-conquer SVD (the reduced path's `project`) is the reference
+            let lapack = base.project(a.clone()).unwrap();
+            assert_eq!(svd.rank, lapack.u.ncols(), "rank of {n} × {k}");
+            let p_ours = ours_u.dot(&ours_u.t());
+            let p_ref = lapack.u.dot(&lapack.u.t());
+            assert!(max_abs((&p_ours - &p_ref).iter()) < 1e-10, "projector {n} × {k}");
+            let scale = max_abs(lapack.pinv.iter()).max(1.0);
+            assert!(
+                max_abs((&ours_pinv - &lapack.pinv).iter()) < 1e-10 * scale,
+                "pseudo-inverse {n} × {k}"
+            );
+        }
     }
 
     #[test]
