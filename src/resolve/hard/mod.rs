@@ -661,7 +661,7 @@ pub(crate) fn baseline_shapes(at: &Array1<f64>, fitted_on: &Array1<f64>, baselin
 /// noise a spectrometer records. It costs samples³/3 operations, a small fraction of the pass
 /// over D.
 fn reduce(d: &Array2<f64>, q_w: Option<&Array2<f64>>) -> Result<Array2<f64>, HardFitError> {
-    let mut gram = d.dot(&d.t());
+    let mut gram = gram_matrix(d);
     if let Some(q) = q_w {
         let dq = d.dot(q);
         gram -= &dq.dot(&dq.t());
@@ -673,6 +673,50 @@ fn reduce(d: &Array2<f64>, q_w: Option<&Array2<f64>>) -> Result<Array2<f64>, Har
         ));
     }
     Ok(g)
+}
+
+/// D·Dᵀ by the symmetric rank-k update of OpenBLAS (`dsyrk`: half the operations of a general
+/// product), the lower triangle mirrored; a general product when D is not a contiguous
+/// row-major array or too large for BLAS integer sizes.
+fn gram_matrix(d: &Array2<f64>) -> Array2<f64> {
+    let (n, k) = d.dim();
+    let (Ok(ni), Ok(ki)) = (i32::try_from(n), i32::try_from(k)) else {
+        return d.dot(&d.t());
+    };
+    let Some(a) = d.as_slice() else {
+        return d.dot(&d.t());
+    };
+    if n == 0 || k == 0 {
+        return Array2::zeros((n, n));
+    }
+    let mut c = Array2::<f64>::zeros((n, n));
+    let Some(out) = c.as_slice_mut() else {
+        return d.dot(&d.t());
+    };
+    // SAFETY: `a` is the contiguous row-major n × k array D (lda = k), `out` the contiguous
+    // row-major n × n output (ldc = n); both outlive the call, n and k fit in i32 and are
+    // positive, and dsyrk writes only the upper triangle of `out`.
+    unsafe {
+        cblas_sys::cblas_dsyrk(
+            cblas_sys::CBLAS_LAYOUT::CblasRowMajor,
+            cblas_sys::CBLAS_UPLO::CblasUpper,
+            cblas_sys::CBLAS_TRANSPOSE::CblasNoTrans,
+            ni,
+            ki,
+            1.0,
+            a.as_ptr(),
+            ki,
+            0.0,
+            out.as_mut_ptr(),
+            ni,
+        );
+    }
+    for i in 0..n {
+        for j in 0..i {
+            c[[i, j]] = c[[j, i]];
+        }
+    }
+    c
 }
 
 /// Cholesky factorisation with diagonal pivoting of a symmetric positive semi-definite matrix:
@@ -1652,5 +1696,19 @@ mod tests {
         let s = x.least_squares(&dt).unwrap().solution;
         let full = &dt - &x.dot(&s);
         approx::assert_relative_eq!(sum_sq(full.view()), r.dot(&r), max_relative = 1e-9);
+    }
+
+    #[test]
+    fn the_rank_k_update_gives_the_gram_matrix_of_contiguous_and_strided_data() {
+        use rand::Rng;
+        let mut rng = crate::testing::rng(5);
+        let d = Array2::from_shape_fn((7, 40), |_| rng.random_range(-1.0..1.0));
+        let want = d.dot(&d.t());
+        let got = gram_matrix(&d);
+        approx::assert_abs_diff_eq!(got, want, epsilon = 1e-12);
+        // a transposed (column-major) array takes the general product
+        let t = d.t().to_owned().reversed_axes();
+        approx::assert_abs_diff_eq!(gram_matrix(&t), want, epsilon = 1e-12);
+        assert_eq!(gram_matrix(&Array2::zeros((3, 0))).dim(), (3, 3));
     }
 }
