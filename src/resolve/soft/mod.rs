@@ -54,6 +54,10 @@
 //! Optionally ([`Hybrid`]) the profiles of selected species follow an equilibrium model whose
 //! parameters are refitted to the soft profiles at every iteration (de Juan, Maeder, Martínez,
 //! Tauler, Chemom. Intell. Lab. Syst. 54 (2000) 123); see [`hybrid`] for the variant used.
+//! The model's speciation runs in the same solution medium as the global fit's, with the same
+//! settings: activity corrections with a background electrolyte (the ionic strength iterated
+//! to self-consistency in each sample), the molal scale, thermal expansion of the totals. Off
+//! by default (an ideal medium: conditional constants, totals as given).
 //!
 //! # Examples
 //! ```
