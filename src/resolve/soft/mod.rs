@@ -382,7 +382,8 @@ pub struct Hybrid {
     pub solver: LmParams,
     /// How the totals at the measurement temperature are obtained from those prepared (default
     /// as given; thermal expansion needs each sample's preparation temperature, see
-    /// [`SampleLayout::preparation_temperatures_k`]).
+    /// [`SampleLayout::preparation_temperatures_k`]; explicit factors are one per row of D,
+    /// i.e. per measurement sample in [`resolve`]).
     #[serde(default)]
     pub concentrations: ConcentrationBasis,
     /// Concentration scale of the model's formation constants (default molar); on the molal
