@@ -1478,6 +1478,27 @@ fn summarise(
     })
 }
 
+/// The totals at the measurement temperature (samples × model components, mol/L) and the
+/// speciation [`Medium`] of `set`, from the concentration basis, scale, activity model and
+/// background ionic strength of `params`, exactly as the global fit sets them up. Used by the
+/// hybrid option of the soft resolution so that both resolutions share one definition.
+///
+/// # Errors
+/// Missing totals, a bad density source or ionic strength, and (activity corrections on) a
+/// species without a charge.
+pub(crate) fn speciation_conditions(
+    set: &SpectraSet,
+    model: &ValidModel,
+    params: &HardFitParams,
+) -> Result<(Array2<f64>, Medium), HardFitError> {
+    let (totals, factors) = measurement_totals(set, model, &params.concentrations)?;
+    let medium = speciation_medium(set, params, &factors)?;
+    if !params.activity.is_none() {
+        model.charges()?;
+    }
+    Ok((totals, medium))
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;
