@@ -118,6 +118,34 @@ fn non_negative_spectra_recover_exact_data_and_stay_non_negative_where_free_ones
     let k = sim.set.n_wavelengths() / 2;
     approx::assert_relative_eq!(fit.spectra[[k, m]], sim.spectra[[k, 3]], max_relative = 1e-6);
 
+    // the same with the metal's spectrum known and held fixed (weights too): still exact
+    let known = HardFitParams {
+        known_spectra: vec![hard::FixedSpectrum {
+            species: "M".into(),
+            wavelengths_nm: sim.set.wavelengths_nm().to_vec(),
+            absorptivity: sim.spectra.column(0).to_vec(),
+        }],
+        weighting: Weighting::Absorbance {
+            floor_au: 1e-3,
+            relative: 0.01,
+        },
+        ..nn.clone()
+    };
+    let fit = hard::fit(&sim.set, &start, &known).unwrap();
+    assert!(fit.termination.converged(), "{:?}", fit.termination);
+    assert_eq!(fit.known_species, ["M"]);
+    for (k, want) in TRUTH.iter().enumerate() {
+        // simulation truth (noise-free data)
+        approx::assert_relative_eq!(fit.parameters[k].value, *want, max_relative = 1e-6);
+    }
+    // the residual matrix of the fit (measured − fitted, known part included) vanishes
+    let r = hard::residual_matrix(&sim.set, &fit, &known).unwrap();
+    assert!(
+        r.iter().all(|v| v.abs() < 1e-9),
+        "max |residual| {}",
+        r.iter().fold(0.0f64, |m, v| m.max(v.abs()))
+    );
+
     // under noise the free fit drives the metal's vanished band below zero; the constrained fit
     // does not, and stays within its uncertainty of the truth
     let noisy = with_noise(&sim.set, 2e-3, 0.0, 5);

@@ -837,9 +837,9 @@ fn the_hybrid_option_recovers_the_simulated_equilibrium_parameters() {
     .unwrap();
     let params = SoftParams {
         n_species: 2,
-        hybrid: Some(Hybrid {
-            model: start,
-            species: vec![
+        hybrid: Some(Hybrid::new(
+            start,
+            vec![
                 HybridSpecies {
                     resolved: 0,
                     model_species: "M".into(),
@@ -849,8 +849,7 @@ fn the_hybrid_option_recovers_the_simulated_equilibrium_parameters() {
                     model_species: "MX".into(),
                 },
             ],
-            solver: Default::default(),
-        }),
+        )),
         tolerance: 1e-10,
         max_iterations: 300,
         ..SoftParams::default()
@@ -881,17 +880,16 @@ fn bad_hybrid_settings_are_typed_errors() {
     use isosbestic::resolve::soft::{Hybrid, HybridSpecies};
     let model = equilibrium_model().as_model().clone();
     let hybrid = |species: Vec<(usize, &str)>| {
-        Some(Hybrid {
-            model: model.clone(),
-            species: species
+        Some(Hybrid::new(
+            model.clone(),
+            species
                 .into_iter()
                 .map(|(resolved, name)| HybridSpecies {
                     resolved,
                     model_species: name.into(),
                 })
                 .collect(),
-            solver: Default::default(),
-        })
+        ))
     };
     let check = |h| {
         SoftParams {
@@ -933,14 +931,13 @@ fn bad_hybrid_settings_are_typed_errors() {
     let mut broken = model.clone();
     broken.species[0].stoichiometry.insert("Q".into(), 1);
     let e = SoftParams {
-        hybrid: Some(Hybrid {
-            model: broken,
-            species: vec![HybridSpecies {
+        hybrid: Some(Hybrid::new(
+            broken,
+            vec![HybridSpecies {
                 resolved: 0,
                 model_species: "M".into(),
             }],
-            solver: Default::default(),
-        }),
+        )),
         ..SoftParams::default()
     }
     .check()

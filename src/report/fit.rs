@@ -101,6 +101,33 @@ pub fn read_model(path: &Path) -> Result<ValidModel> {
     })
 }
 
+/// The fit settings with the known spectra the model names (`known_spectrum = "…"`, relative to
+/// the model file's folder) read and added, unless the settings already hold that species'
+/// spectrum; each file read is checksummed into `inputs`.
+///
+/// # Errors
+/// [`Error::Input`] or [`Error::Csv`] naming the spectrum file, line and column.
+pub fn with_model_spectra(
+    params: &HardFitParams,
+    model: &ValidModel,
+    model_path: &Path,
+    inputs: &mut Vec<InputFile>,
+) -> Result<HardFitParams> {
+    let dir = model_path.parent().unwrap_or_else(|| Path::new(""));
+    let mut out = params.clone();
+    for sp in model.species() {
+        if let Some(file) = &sp.known_spectrum
+            && !params.known_spectra.iter().any(|k| k.species == sp.name)
+        {
+            let path = dir.join(file);
+            inputs.push(checksum(&path)?);
+            out.known_spectra
+                .push(hard::FixedSpectrum::read(&path, &sp.name)?);
+        }
+    }
+    Ok(out)
+}
+
 /// A finding about a fit that a user should read (not an error: the fit ran).
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
 #[serde(tag = "kind", rename_all = "snake_case")]
@@ -140,6 +167,14 @@ pub enum Diagnostic {
         delta_chi2: f64,
         /// Whether a declared ε ceiling chose the reported solution.
         chosen_by_prior: bool,
+    },
+    /// Known spectra held fixed ruled out the mirror solution (metal and complex swapped): the
+    /// run started with the other ΔH° signs came back to the reported solution or fits worse.
+    KnownSpectraDecide {
+        /// The species whose spectra were held fixed.
+        species: Vec<String>,
+        /// Δχ² of the mirror-side solution against the reported one (0 when it came back).
+        delta_chi2: f64,
     },
     /// A fitted spectrum breaks a declared ε ceiling.
     CeilingBroken {
@@ -205,6 +240,17 @@ impl fmt::Display for Diagnostic {
                         "the data cannot decide: declare a weak absorber's ε ceiling (max_absorptivity), a known spectrum, or measure several ligand levels"
                     )
                 }
+            }
+            Self::KnownSpectraDecide { species, delta_chi2 } => {
+                if *delta_chi2 > 0.0 {
+                    write!(
+                        f,
+                        "the swapped (mirror) solution fits worse by Δχ² = {delta_chi2:.1}: "
+                    )?;
+                } else {
+                    write!(f, "a start with the other ΔH° signs came back to this solution: ")?;
+                }
+                write!(f, "the known spectra of {} decide", species.join(", "))
             }
             Self::CeilingBroken { detail } => {
                 write!(f, "fitted spectrum breaks its declared ceiling: {detail}")
@@ -304,8 +350,9 @@ pub fn run_fit_with_progress(
         config.fit.concentrations =
             hard::ConcentrationBasis::ThermalExpansion(crate::thermo::SolventDensity::Table(table));
     }
-    let config = &config;
     let model = read_model(&config.model)?;
+    config.fit = with_model_spectra(&config.fit, &model, &config.model, &mut inputs)?;
+    let config = &config;
     let set = load(&config.data)?;
     let (set, preprocessing) = config.preprocess.clone().check()?.apply(&set)?;
     let fit = hard::fit_with_progress(&set, &model, &config.fit, &|fit| {
@@ -354,16 +401,30 @@ fn fit_candidates(
         .collect();
     let names = candidate_names(&paths);
     let mut models = Vec::with_capacity(config.candidates.len());
+    let mut settings = Vec::with_capacity(config.candidates.len());
     for path in &config.candidates {
         inputs.push(checksum(path)?);
-        models.push(read_model(path)?);
+        let candidate = read_model(path)?;
+        // Known spectra of species the candidate does not have do not apply to it.
+        let own = HardFitParams {
+            known_spectra: config
+                .fit
+                .known_spectra
+                .iter()
+                .filter(|k| candidate.species().iter().any(|s| s.name == k.species))
+                .cloned()
+                .collect(),
+            ..config.fit.clone()
+        };
+        settings.push(with_model_spectra(&own, &candidate, path, inputs)?);
+        models.push(candidate);
     }
     let n_models = 1 + models.len();
     let results: Vec<std::result::Result<HardFit, String>> = models
         .iter()
         .enumerate()
         .map(|(k, m)| {
-            hard::fit_with_progress(set, m, &config.fit, &|fit| {
+            hard::fit_with_progress(set, m, &settings[k], &|fit| {
                 progress(RunProgress {
                     model: k + 1,
                     models: n_models,
@@ -440,6 +501,15 @@ pub fn diagnose(set: &SpectraSet, fit: &HardFit, params: &HardFitParams) -> Vec<
             }
         }
     }
+    if !fit.known_species.is_empty()
+        && fit.alternatives.is_empty()
+        && let Some(delta_chi2) = fit.mirror_delta_chi2
+    {
+        out.push(Diagnostic::KnownSpectraDecide {
+            species: fit.known_species.clone(),
+            delta_chi2,
+        });
+    }
     let columns = fit.design_singular_values.len();
     if fit.design_rank < columns {
         out.push(Diagnostic::RankDeficientDesign {
@@ -467,7 +537,7 @@ pub fn diagnose(set: &SpectraSet, fit: &HardFit, params: &HardFitParams) -> Vec<
         hard::Baseline::OffsetAndSlope => 2,
     };
     if let Ok(dec) = crate::factor::decompose(set.absorbance().view())
-        && let Some(noise) = dec.noise_estimate(columns + baseline_terms)
+        && let Some(noise) = dec.noise_estimate(columns + fit.known_species.len() + baseline_terms)
         && noise > 0.0
         && fit.residual_sd > 1.5 * noise
     {

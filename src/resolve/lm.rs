@@ -139,7 +139,13 @@ impl LmTermination {
 pub struct LmParams {
     /// Maximum iterations (accepted or rejected steps count once each).
     pub max_iterations: u64,
-    /// Relative cost decrease below which an accepted step means convergence.
+    /// Relative cost decrease below which an accepted step means convergence (default 1e-12).
+    ///
+    /// For a least-squares fit with ν degrees of freedom at its noise level the cost is about
+    /// νσ²/2, so a relative decrease ε is a change of χ² by about ε·ν: with ν up to 10⁶ the
+    /// default stops within Δχ² ≈ 1e-6, i.e. within about 1e-3 standard errors of the minimum
+    /// (noise-free problems, whose cost falls by orders of magnitude per step, stop on the step
+    /// size instead).
     pub cost_tolerance: f64,
     /// Relative step size below which the fit has converged.
     pub step_tolerance: f64,
@@ -157,7 +163,7 @@ impl Default for LmParams {
     fn default() -> Self {
         Self {
             max_iterations: 200,
-            cost_tolerance: 1e-14,
+            cost_tolerance: 1e-12,
             step_tolerance: 1e-10,
             gradient_tolerance: 1e-12,
             initial_damping: 1e-3,

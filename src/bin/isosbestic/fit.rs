@@ -1,12 +1,10 @@
 //! `isosbestic fit`.
 
 use crate::input::DataArgs;
+use crate::medium::{ExpansionArgs, MediumArgs};
 use clap::{Args, ValueEnum};
 use isosbestic::report::fit::{FitRunConfig, write_fit_outputs, write_fit_page};
-use isosbestic::resolve::hard::{Baseline, ConcentrationBasis, SpectraSign, SpectraTemperature, Weighting};
-use isosbestic::thermo::{
-    ActivityCorrection, ConcentrationScale, Davies, ExtendedDebyeHuckel, SolventDensity,
-};
+use isosbestic::resolve::hard::{Baseline, SpectraSign, SpectraTemperature, Weighting};
 use std::path::{Path, PathBuf};
 use std::process::ExitCode;
 
@@ -28,32 +26,6 @@ enum SpectraTArg {
 enum BootstrapKindArg {
     Residual,
     Wild,
-}
-
-#[derive(Debug, Clone, Copy, ValueEnum)]
-enum ExpansionArg {
-    /// Totals are used as given.
-    None,
-    /// Totals scale with the density of water between preparation and measurement.
-    Water,
-}
-
-#[derive(Debug, Clone, Copy, ValueEnum)]
-enum ActivityArg {
-    /// No correction: constant ionic medium, conditional constants (the default).
-    None,
-    /// Davies equation (thermodynamic constants; every species needs a charge).
-    Davies,
-    /// Extended Debye–Hückel with the Bates–Guggenheim size term (B·å = 1.5).
-    ExtendedDebyeHuckel,
-}
-
-#[derive(Debug, Clone, Copy, ValueEnum)]
-enum ScaleArg {
-    /// mol/L (the default).
-    Molar,
-    /// mol/kg of solvent (dilute approximation: kg of solvent per litre = ρ_solvent(T)/1000).
-    Molal,
 }
 
 #[derive(Debug, Args)]
@@ -93,24 +65,12 @@ pub struct FitArgs {
     /// Reference temperature of the spectra polynomial, °C (default 25).
     #[arg(long, value_name = "CELSIUS")]
     spectra_reference_c: Option<f64>,
-    /// Thermal expansion of the solutions between preparation and measurement.
-    #[arg(long, value_enum)]
-    expansion: Option<ExpansionArg>,
-    /// Density table of the solvent or brine (CSV: temperature_C or temperature_K,
-    /// density_kg_m3): totals scale with ρ(T)/ρ(T_prep) from this table (thermal expansion).
-    /// Also `density_table = "<CSV>"` at the top of the configuration file.
-    #[arg(long, value_name = "CSV", conflicts_with = "expansion")]
-    density_table: Option<PathBuf>,
-    /// Activity corrections (off by default: constant ionic medium, conditional constants).
-    /// Needs `charge` on the model's components.
-    #[arg(long, value_enum)]
-    activity: Option<ActivityArg>,
-    /// Ionic strength of the inert background electrolyte, mol/L as prepared (with --activity).
-    #[arg(long, value_name = "MOL_PER_L")]
-    medium_ionic_strength: Option<f64>,
-    /// Concentration scale of the formation constants.
-    #[arg(long, value_enum)]
-    scale: Option<ScaleArg>,
+    /// Thermal expansion (--expansion, --density-table).
+    #[command(flatten)]
+    expansion: ExpansionArgs,
+    /// Activity corrections, background electrolyte, scale.
+    #[command(flatten)]
+    medium: MediumArgs,
     /// Known noise (AU): fixes the scale of the standard errors instead of the residuals.
     #[arg(long, value_name = "AU")]
     noise: Option<f64>,
@@ -195,35 +155,24 @@ fn config_from(args: &FitArgs) -> isosbestic::Result<FitRunConfig> {
             SpectraTArg::Quadratic => SpectraTemperature::Quadratic { reference_k },
         };
     }
-    if let Some(e) = args.expansion {
-        config.fit.concentrations = match e {
-            ExpansionArg::None => ConcentrationBasis::AsGiven,
-            ExpansionArg::Water => ConcentrationBasis::ThermalExpansion(SolventDensity::Water),
-        };
+    let expansion = args.expansion.expansion();
+    if let Some(basis) = &expansion {
+        config.fit.concentrations = basis.clone();
     }
-    if let Some(path) = &args.density_table {
+    if let Some(path) = &args.expansion.density_table {
         config.density_table = Some(path.clone());
-    } else if args.expansion.is_some() {
+    } else if expansion.is_some() {
         // an explicit --expansion replaces a density table from the configuration file
         config.density_table = None;
     }
-    if let Some(a) = args.activity {
-        config.fit.activity = match a {
-            ActivityArg::None => ActivityCorrection::None,
-            ActivityArg::Davies => ActivityCorrection::Davies(Davies::default()),
-            ActivityArg::ExtendedDebyeHuckel => {
-                ActivityCorrection::ExtendedDebyeHuckel(ExtendedDebyeHuckel::default())
-            }
-        };
+    if let Some(a) = args.medium.activity() {
+        config.fit.activity = a;
     }
-    if let Some(i) = args.medium_ionic_strength {
+    if let Some(i) = args.medium.medium_ionic_strength() {
         config.fit.medium_ionic_strength = i;
     }
-    if let Some(s) = args.scale {
-        config.fit.concentration_scale = match s {
-            ScaleArg::Molar => ConcentrationScale::Molar,
-            ScaleArg::Molal => ConcentrationScale::molal_dilute(),
-        };
+    if let Some(s) = args.medium.scale() {
+        config.fit.concentration_scale = s;
     }
     if let Some(n) = args.noise {
         config.fit.known_noise = Some(n);

@@ -9,6 +9,7 @@ mod compare;
 mod fit;
 mod input;
 mod inspect;
+mod medium;
 mod resolve;
 mod simulate;
 mod vanthoff;

@@ -36,11 +36,13 @@
 
 mod dialect;
 mod error;
+mod known;
 mod ktable;
 mod samples;
 mod spectra;
 
 pub use error::CsvError;
+pub use known::{KnownSpectrumTable, parse_known_spectrum, read_known_spectrum};
 pub use ktable::{KTable, parse_k_table, read_k_table};
 pub(crate) use samples::{ColumnRole, classify_column};
 pub use samples::{

@@ -161,6 +161,34 @@ pub fn fitted_values(
                 .ok_or_else(|| HardFitError::Settings(format!("species '{name}' missing from the fit")))
         })
         .collect::<Result<_, _>>()?;
+    // The known spectra's part K = diag(b)·C_k·E_kᵀ (held fixed in the fit).
+    let mut known_part = (!fit.known_species.is_empty()).then(|| Array2::<f64>::zeros((ns, nw)));
+    for name in &fit.known_species {
+        let spectrum = params
+            .known_spectra
+            .iter()
+            .find(|s| &s.species == name)
+            .ok_or_else(|| HardFitError::Settings(format!("no known spectrum of '{name}' in the settings")))?
+            .on_grid(set.wavelengths_nm())?;
+        let k = fit
+            .species
+            .iter()
+            .position(|s| s == name)
+            .ok_or_else(|| HardFitError::Settings(format!("species '{name}' missing from the fit")))?;
+        if let Some(part) = known_part.as_mut() {
+            for (i, mut row) in part.rows_mut().into_iter().enumerate() {
+                row.scaled_add(set.samples()[i].path_cm * fit.concentrations[[i, k]], &spectrum);
+            }
+        }
+    }
+    let less_known;
+    let d = match &known_part {
+        None => d,
+        Some(part) => {
+            less_known = d - part;
+            &less_known
+        }
+    };
     let t_eps = params.spectra_temperature.reference_k();
     let mut x = Array2::zeros((ns, m));
     for (i, sample) in set.samples().iter().enumerate() {
@@ -203,6 +231,9 @@ pub fn fitted_values(
             (wl_used, coefficients)
         }; // coefficients: samples × baseline terms
         fitted += &coefficients.dot(&super::baseline_shapes(wl, &fitted_on, params.baseline).t());
+    }
+    if let Some(part) = &known_part {
+        fitted += part;
     }
     Ok(fitted)
 }

@@ -351,8 +351,18 @@ pub(super) struct ColumnwiseSolution {
     pub nnls_unconverged: Vec<usize>,
 }
 
-/// C, X and ∂X/∂θ_p at one θ.
-type Designs = (Array2<f64>, Array2<f64>, Vec<Array2<f64>>);
+/// Everything a wavelength's solve needs from the speciation at one θ.
+struct Designs {
+    /// The design X, samples × m.
+    x: Array2<f64>,
+    /// ∂X/∂θ_p (empty without derivatives).
+    dx: Vec<Array2<f64>>,
+    /// diag(b)·C_known, samples × known spectra (`None` without known spectra): the known
+    /// spectra's part of wavelength j is this times their ε at j.
+    known: Option<Array2<f64>>,
+    /// ∂(diag(b)·C_known)/∂θ_p (empty without derivatives or known spectra).
+    dknown: Vec<Array2<f64>>,
+}
 
 /// Partial sums over a chunk of wavelengths.
 struct Partial {
@@ -426,12 +436,25 @@ impl<'a> ColumnwiseProblem<'a> {
         }
     }
 
-    /// Concentrations C, design X and its θ-derivatives ∂X/∂θ_p at θ.
+    /// Design X, the known spectra's concentrations and their θ-derivatives at θ.
     fn designs(&self, theta: &Array1<f64>, derivatives: bool) -> Result<Designs, ArgminError> {
         let (c, dc) = self.base.speciate(theta, derivatives)?;
-        let x = self.base.design(c.view());
-        let dx = dc.iter().map(|d| self.base.design(d.view())).collect();
-        Ok((c, x, dx))
+        let known_of = |c: &Array2<f64>| {
+            Array2::from_shape_fn((c.nrows(), self.base.known.len()), |(i, a)| {
+                self.base.path_cm[i] * c[[i, self.base.known[a]]]
+            })
+        };
+        let has_known = !self.base.known.is_empty();
+        Ok(Designs {
+            x: self.base.design(c.view()),
+            dx: dc.iter().map(|d| self.base.design(d.view())).collect(),
+            known: has_known.then(|| known_of(&c)),
+            dknown: if has_known {
+                dc.iter().map(known_of).collect()
+            } else {
+                Vec::new()
+            },
+        })
     }
 
     /// Rows of `m` scaled by the weights of wavelength j.
@@ -472,18 +495,22 @@ impl<'a> ColumnwiseProblem<'a> {
     /// Solves wavelength j at the design `x`; with `dx`, also its Jacobian block. Plain loops
     /// over small slices: at a few samples × a few columns per wavelength, library calls and
     /// allocations would cost more than the arithmetic.
-    fn solve_column(
-        &self,
-        x: &Array2<f64>,
-        dx: Option<&[Array2<f64>]>,
-        j: usize,
-    ) -> Result<ColumnFit, ArgminError> {
+    fn solve_column(&self, designs: &Designs, derivatives: bool, j: usize) -> Result<ColumnFit, ArgminError> {
+        let x = &designs.x;
+        let dx = derivatives.then_some(designs.dx.as_slice());
         let (ns, m) = x.dim();
-        let y: Vec<f64> = self.weighted_data.column(j).to_vec();
+        let mut y: Vec<f64> = self.weighted_data.column(j).to_vec();
         let sw: Vec<f64> = match &self.sqrt_weights {
             Some(w) => w.column(j).to_vec(),
             None => vec![1.0; ns],
         };
+        // the known spectra's part, held fixed: y = √W (d_j − diag(b)·C_known·E_j)
+        let known_eps = self.base.known_values.column(j);
+        if let Some(kc) = &designs.known {
+            for (i, row) in kc.rows().into_iter().enumerate() {
+                y[i] -= sw[i] * row.dot(&known_eps);
+            }
+        }
         let has_data = sw.iter().any(|&v| v > 0.0);
         let dot = |a: &[f64], b: &[f64]| a.iter().zip(b).map(|(x, y)| x * y).sum::<f64>();
         // SVD of (√W X_P), built from its transpose (k × ns)
@@ -556,7 +583,8 @@ impl<'a> ColumnwiseProblem<'a> {
             let mut e = vec![0.0; ns];
             let mut v = vec![0.0; k];
             for (p, dxp) in dx.iter().enumerate() {
-                // a = Q_P ∂X_P s_P, b = X_P⁺ᵀ ∂X_Pᵀ r (both with the weights)
+                // a = Q_P (∂X_P s_P + ∂K e_j), b = X_P⁺ᵀ ∂X_Pᵀ r (all with the weights), where
+                // ∂K e_j is the θ-derivative of the known spectra's part (y depends on θ too)
                 v.fill(0.0);
                 for (i, row) in dxp.rows().into_iter().enumerate() {
                     let mut ei = 0.0;
@@ -564,6 +592,9 @@ impl<'a> ColumnwiseProblem<'a> {
                         let d = sw[i] * row[a];
                         ei += d * s_p[c];
                         v[c] += d * residual[i];
+                    }
+                    if let Some(dk) = designs.dknown.get(p) {
+                        ei += sw[i] * dk.row(i).dot(&known_eps);
                     }
                     e[i] = ei;
                 }
@@ -588,10 +619,9 @@ impl<'a> ColumnwiseProblem<'a> {
     /// Cost and (optionally) Jᵀr, JᵀJ summed over all wavelengths, chunk by chunk in parallel,
     /// added in chunk order.
     fn accumulate(&self, theta: &Array1<f64>, with_normal_equations: bool) -> Result<Partial, ArgminError> {
-        let (_, x, dx) = self.designs(theta, with_normal_equations)?;
-        let np = dx.len();
+        let designs = self.designs(theta, with_normal_equations)?;
+        let np = designs.dx.len();
         let nw = self.n_wavelengths();
-        let dx_ref = with_normal_equations.then_some(dx.as_slice());
         let partials: Vec<Partial> = (0..nw.div_ceil(CHUNK))
             .into_par_iter()
             .map(|chunk| {
@@ -601,7 +631,7 @@ impl<'a> ColumnwiseProblem<'a> {
                     gauss_newton: Array2::zeros((np, np)),
                 };
                 for j in chunk * CHUNK..((chunk + 1) * CHUNK).min(nw) {
-                    let col = self.solve_column(&x, dx_ref, j)?;
+                    let col = self.solve_column(&designs, with_normal_equations, j)?;
                     part.rss += col.residual.dot(&col.residual);
                     if let Some(jac) = col.jacobian {
                         for (row, &ri) in jac.rows().into_iter().zip(col.residual.iter()) {
@@ -640,12 +670,12 @@ impl<'a> ColumnwiseProblem<'a> {
     /// # Errors
     /// When the speciation or a solve fails at θ.
     pub fn solution(&self, theta: &Array1<f64>) -> Result<ColumnwiseSolution, ArgminError> {
-        let (_, x, _) = self.designs(theta, false)?;
-        let (ns, m) = x.dim();
+        let designs = self.designs(theta, false)?;
+        let (ns, m) = designs.x.dim();
         let nw = self.n_wavelengths();
         let columns: Vec<ColumnFit> = (0..nw)
             .into_par_iter()
-            .map(|j| self.solve_column(&x, None, j))
+            .map(|j| self.solve_column(&designs, false, j))
             .collect::<Result<_, ArgminError>>()?;
         let mut spectra = Array2::zeros((nw, m));
         let mut se_factors = Array2::zeros((nw, m));
@@ -676,12 +706,12 @@ impl<'a> ColumnwiseProblem<'a> {
     /// The stacked weighted residual (wavelength by wavelength) and its Jacobian, for tests.
     #[cfg(test)]
     fn stacked(&self, theta: &Array1<f64>) -> Result<(Array1<f64>, Array2<f64>), ArgminError> {
-        let (_, x, dx) = self.designs(theta, true)?;
-        let (ns, nw, np) = (x.nrows(), self.n_wavelengths(), dx.len());
+        let designs = self.designs(theta, true)?;
+        let (ns, nw, np) = (designs.x.nrows(), self.n_wavelengths(), designs.dx.len());
         let mut r = Array1::zeros(ns * nw);
         let mut jac = Array2::zeros((ns * nw, np));
         for j in 0..nw {
-            let col = self.solve_column(&x, Some(&dx), j)?;
+            let col = self.solve_column(&designs, true, j)?;
             r.slice_mut(ndarray::s![j * ns..(j + 1) * ns])
                 .assign(&col.residual);
             if let Some(jj) = col.jacobian {
@@ -694,11 +724,11 @@ impl<'a> ColumnwiseProblem<'a> {
     /// The stacked weighted residual only (no derivatives), for finite differences in tests.
     #[cfg(test)]
     fn stacked_residual(&self, theta: &Array1<f64>) -> Result<Array1<f64>, ArgminError> {
-        let (_, x, _) = self.designs(theta, false)?;
-        let (ns, nw) = (x.nrows(), self.n_wavelengths());
+        let designs = self.designs(theta, false)?;
+        let (ns, nw) = (designs.x.nrows(), self.n_wavelengths());
         let mut r = Array1::zeros(ns * nw);
         for j in 0..nw {
-            let col = self.solve_column(&x, None, j)?;
+            let col = self.solve_column(&designs, false, j)?;
             r.slice_mut(ndarray::s![j * ns..(j + 1) * ns])
                 .assign(&col.residual);
         }
@@ -848,7 +878,25 @@ pub(super) fn fitted_values(
         }
     }
     // NaN spectra (wavelengths without data) give NaN fitted values there, as they should.
-    Ok(x.dot(&fit.spectra.t()))
+    let mut fitted = x.dot(&fit.spectra.t());
+    // the known spectra's part diag(b)·C_k·E_kᵀ, held fixed in the fit
+    for name in &fit.known_species {
+        let spectrum = params
+            .known_spectra
+            .iter()
+            .find(|s| &s.species == name)
+            .ok_or_else(|| HardFitError::Settings(format!("no known spectrum of '{name}' in the settings")))?
+            .on_grid(set.wavelengths_nm())?;
+        let k = fit
+            .species
+            .iter()
+            .position(|s| s == name)
+            .ok_or_else(|| HardFitError::Settings(format!("species '{name}' missing from the fit")))?;
+        for (i, mut row) in fitted.rows_mut().into_iter().enumerate() {
+            row.scaled_add(set.samples()[i].path_cm * fit.concentrations[[i, k]], &spectrum);
+        }
+    }
+    Ok(fitted)
 }
 
 #[cfg(test)]
@@ -934,13 +982,30 @@ mod tests {
             floor_au: 2e-3,
             relative: 0.02,
         };
-        for (sign, weighting) in [
-            (SpectraSign::Free, Weighting::Uniform),
-            (SpectraSign::Free, weights),
-            (SpectraSign::NonNegative, Weighting::Uniform),
-            (SpectraSign::NonNegative, weights),
+        for (sign, weighting, known) in [
+            (SpectraSign::Free, Weighting::Uniform, false),
+            (SpectraSign::Free, weights, false),
+            (SpectraSign::NonNegative, Weighting::Uniform, false),
+            (SpectraSign::NonNegative, weights, false),
+            (SpectraSign::NonNegative, weights, true),
         ] {
-            let pr = problem(&sim.set, &model, &free, sign, weighting);
+            let params = HardFitParams {
+                known_spectra: if known {
+                    vec![known_metal(&sim)]
+                } else {
+                    Vec::new()
+                },
+                ..HardFitParams::default()
+            };
+            let (base, _, _) = build_problem(&sim.set, &model, &free, &params).unwrap();
+            let pr = ColumnwiseProblem::new(
+                base,
+                sim.set.absorbance().view(),
+                sim.set.mask().view(),
+                sign,
+                weighting,
+            )
+            .unwrap();
             if sign == SpectraSign::NonNegative {
                 // the data must exercise the constraint: some ε clipped at this θ
                 let sol = pr.solution(&theta).unwrap();
@@ -968,7 +1033,7 @@ mod tests {
                 let scale = max_abs(fd.iter());
                 assert!(
                     err <= 1e-6 * scale,
-                    "{sign:?}/{weighting:?}, parameter {p}: max |J − FD| = {err}, scale {scale}"
+                    "{sign:?}/{weighting:?}/known {known}, parameter {p}: max |J − FD| = {err}, scale {scale}"
                 );
             }
             // the accumulated normal equations are those of the stacked Jacobian
@@ -994,13 +1059,40 @@ mod tests {
         }
     }
 
+    /// The simulation's true spectrum of the free metal M as a known spectrum.
+    fn known_metal(sim: &crate::simulate::Simulation) -> super::super::FixedSpectrum {
+        super::super::FixedSpectrum {
+            species: "M".into(),
+            wavelengths_nm: sim.set.wavelengths_nm().to_vec(),
+            absorptivity: sim.spectra.column(0).to_vec(),
+        }
+    }
+
     #[test]
     fn uniform_free_columnwise_equals_the_reduced_variable_projection() {
         let model = model();
         let sim = simulate(&model, &plan(Noise::Absorbance { sd_au: 2e-3 })).unwrap();
         let free = free_parameters(&model);
-        let (reduced, _, _) = build_problem(&sim.set, &model, &free, &HardFitParams::default()).unwrap();
-        let pr = problem(&sim.set, &model, &free, SpectraSign::Free, Weighting::Uniform);
+        for known in [Vec::new(), vec![known_metal(&sim)]] {
+            let params = HardFitParams {
+                known_spectra: known,
+                ..HardFitParams::default()
+            };
+            let (reduced, _, _) = build_problem(&sim.set, &model, &free, &params).unwrap();
+            let (base, _, _) = build_problem(&sim.set, &model, &free, &params).unwrap();
+            let pr = ColumnwiseProblem::new(
+                base,
+                sim.set.absorbance().view(),
+                sim.set.mask().view(),
+                SpectraSign::Free,
+                Weighting::Uniform,
+            )
+            .unwrap();
+            compare_with_reduced(&reduced, &pr);
+        }
+    }
+
+    fn compare_with_reduced(reduced: &VarproProblem<'_>, pr: &ColumnwiseProblem<'_>) {
         for theta in [
             ndarray::array![0.7, 5_000.0, 0.3, 20_000.0],
             ndarray::array![0.4, 12_000.0, -0.2, 35_000.0],
@@ -1048,7 +1140,7 @@ mod tests {
         let pr = problem(&sim.set, &model, &free, SpectraSign::NonNegative, weighting);
         let theta = ndarray::array![0.7, 5_000.0, 0.3, 20_000.0];
         let sol = pr.solution(&theta).unwrap();
-        let (_, x, _) = pr.designs(&theta, false).unwrap();
+        let x = pr.designs(&theta, false).unwrap().x;
         let mut clipped = 0;
         for j in 0..pr.n_wavelengths() {
             let xw = pr.weigh(x.view(), j);

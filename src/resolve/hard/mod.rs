@@ -38,6 +38,13 @@
 //! wavelength at which any sample is masked (`n_data` counts what was used), and the spectra
 //! there are estimated afterwards from the unmasked samples only.
 //!
+//! ## Known spectra
+//! Species with a known ε(λ) ([`FixedSpectrum`], [`HardFitParams::known_spectra`]) are held
+//! fixed: their part diag(b)·C_k(θ)·E_kᵀ is subtracted inside the projection,
+//! R = Q_X·(D − diag(b)·C_k·E_kᵀ)·(I − P_W). The known spectra are reduced together with the
+//! data (pivoted Cholesky of the Gram matrix of the stacked rows [D̃; Ẽ_kᵀ] gives [G; H]), so the
+//! target in reduced coordinates is Y(θ) = G − diag(b)·C_k(θ)·H, still exact.
+//!
 //! ## Non-negative spectra and weights
 //! Two settings do not factor through D̃D̃ᵀ and take the columnwise path instead
 //! ([`columnwise`]): non-negative pure spectra ([`SpectraSign::NonNegative`], NNLS at each
@@ -64,9 +71,12 @@
 
 pub mod bootstrap;
 pub mod columnwise;
+mod known;
 mod problem;
 
 pub use columnwise::{SpectraSign, Weighting};
+pub use known::FixedSpectrum;
+use known::KnownSpectra;
 
 use super::lm::{self, LmParams, LmTermination};
 use crate::data::SpectraSet;
@@ -77,7 +87,7 @@ use crate::thermo::{ActivityCorrection, ConcentrationScale, SolventDensity};
 use columnwise::FitProblem;
 use ndarray::{Array1, Array2};
 use ndarray_linalg::{Eigh, Inverse, JobSvd, LeastSquaresSvd, SVDDC, UPLO};
-use problem::{Projection, VarproProblem, sum_sq};
+use problem::{Projection, VarproProblem};
 use serde::{Deserialize, Serialize};
 use std::sync::Mutex;
 use thiserror::Error;
@@ -106,6 +116,16 @@ pub enum HardFitError {
     /// Invalid settings.
     #[error("invalid fit settings: {0}")]
     Settings(String),
+    /// A known spectrum that cannot be used.
+    #[error("known spectrum of species '{species}'{}: {reason}", wavelength_nm.map(|w| format!(" at {w} nm")).unwrap_or_default())]
+    KnownSpectrum {
+        /// The species.
+        species: String,
+        /// The wavelength concerned, nm, if one is.
+        wavelength_nm: Option<f64>,
+        /// What is wrong.
+        reason: String,
+    },
     /// The solver failed (e.g. speciation did not converge at some trial θ).
     #[error("the fit failed: {0}")]
     Solver(String),
@@ -198,6 +218,10 @@ pub struct HardFitParams {
     pub medium_ionic_strength: f64,
     /// Known noise σ (absorbance units): fixes the scale of the covariance instead of RSS/ν.
     pub known_noise: Option<f64>,
+    /// Pure spectra known beforehand, held fixed (not fitted). Every species whose model entry
+    /// names a `known_spectrum` file must have its values here
+    /// ([`FixedSpectrum::read_for_model`] reads them).
+    pub known_spectra: Vec<FixedSpectrum>,
     /// Number of starting points tried per free log β (odd; 1 = start from the model values).
     pub start_grid: usize,
     /// Half-width of the start grid in log β units.
@@ -222,6 +246,7 @@ impl Default for HardFitParams {
             activity: ActivityCorrection::None,
             medium_ionic_strength: 0.0,
             known_noise: None,
+            known_spectra: Vec::new(),
             start_grid: 5,
             start_span: 2.0,
             solver: LmParams::default(),
@@ -280,6 +305,8 @@ pub struct HardFit {
     pub thermodynamics: Vec<SpeciesThermodynamics>,
     /// Names of the species whose spectra were fitted (columns of `spectra`, per order block).
     pub absorbing_species: Vec<String>,
+    /// Names of the species whose spectra were known and held fixed.
+    pub known_species: Vec<String>,
     /// Pure spectra ε (wavelengths × absorbing species × (order + 1) blocks: ε₀ block first).
     pub spectra: Array2<f64>,
     /// Standard errors of `spectra`, conditional on θ.
@@ -327,6 +354,11 @@ pub struct HardFit {
     /// (ε there are feasible, ≥ 0, but may not be optimal); empty otherwise.
     #[serde(default)]
     pub nnls_unconverged_nm: Vec<f64>,
+    /// Δχ² = (RSS_other − RSS)/σ² of the solution reached from the best start with the other
+    /// ΔH° signs (the mirror side), when such a run was made (≈ 0 when it came back to the
+    /// reported solution); an ambiguity is reported in `alternatives` only when that solution is
+    /// distinct and below [`MIRROR_DELTA_CHI2`].
+    pub mirror_delta_chi2: Option<f64>,
 }
 
 /// log₁₀ β of one species at one temperature with its standard error and confidence band.
@@ -651,7 +683,7 @@ pub(crate) fn baseline_shapes(at: &Array1<f64>, fitted_on: &Array1<f64>, baselin
 /// noise a spectrometer records. It costs samples³/3 operations, a small fraction of the pass
 /// over D.
 fn reduce(d: &Array2<f64>, q_w: Option<&Array2<f64>>) -> Result<Array2<f64>, HardFitError> {
-    let mut gram = d.dot(&d.t());
+    let mut gram = gram_matrix(d);
     if let Some(q) = q_w {
         let dq = d.dot(q);
         gram -= &dq.dot(&dq.t());
@@ -663,6 +695,50 @@ fn reduce(d: &Array2<f64>, q_w: Option<&Array2<f64>>) -> Result<Array2<f64>, Har
         ));
     }
     Ok(g)
+}
+
+/// D·Dᵀ by the symmetric rank-k update of OpenBLAS (`dsyrk`: half the operations of a general
+/// product), the lower triangle mirrored; a general product when D is not a contiguous
+/// row-major array or too large for BLAS integer sizes.
+fn gram_matrix(d: &Array2<f64>) -> Array2<f64> {
+    let (n, k) = d.dim();
+    let (Ok(ni), Ok(ki)) = (i32::try_from(n), i32::try_from(k)) else {
+        return d.dot(&d.t());
+    };
+    let Some(a) = d.as_slice() else {
+        return d.dot(&d.t());
+    };
+    if n == 0 || k == 0 {
+        return Array2::zeros((n, n));
+    }
+    let mut c = Array2::<f64>::zeros((n, n));
+    let Some(out) = c.as_slice_mut() else {
+        return d.dot(&d.t());
+    };
+    // SAFETY: `a` is the contiguous row-major n × k array D (lda = k), `out` the contiguous
+    // row-major n × n output (ldc = n); both outlive the call, n and k fit in i32 and are
+    // positive, and dsyrk writes only the upper triangle of `out`.
+    unsafe {
+        cblas_sys::cblas_dsyrk(
+            cblas_sys::CBLAS_LAYOUT::CblasRowMajor,
+            cblas_sys::CBLAS_UPLO::CblasUpper,
+            cblas_sys::CBLAS_TRANSPOSE::CblasNoTrans,
+            ni,
+            ki,
+            1.0,
+            a.as_ptr(),
+            ki,
+            0.0,
+            out.as_mut_ptr(),
+            ni,
+        );
+    }
+    for i in 0..n {
+        for j in 0..i {
+            c[[i, j]] = c[[j, i]];
+        }
+    }
+    c
 }
 
 /// Cholesky factorisation with diagonal pivoting of a symmetric positive semi-definite matrix:
@@ -738,18 +814,12 @@ fn build_problem<'a>(
     if free.is_empty() {
         return Err(HardFitError::NoFreeParameters);
     }
-    if let Some(sp) = model.species().iter().find(|s| s.known_spectrum.is_some()) {
-        return Err(HardFitError::Settings(format!(
-            "species '{}' has a known spectrum; holding known spectra fixed inside the global fit is not \
-             implemented yet (remove known_spectrum to fit its spectrum freely)",
-            sp.name
-        )));
-    }
+    let known = KnownSpectra::resolve(model, &params.known_spectra, set.wavelengths_nm())?;
     let absorbing: Vec<usize> = model
         .species()
         .iter()
         .enumerate()
-        .filter(|(_, s)| s.optics == crate::speciation::Optics::Absorbing)
+        .filter(|(k, s)| s.optics == crate::speciation::Optics::Absorbing && !known.species.contains(k))
         .map(|(k, _)| k)
         .collect();
     if absorbing.is_empty() {
@@ -782,7 +852,23 @@ fn build_problem<'a>(
     let (ns, nw) = d.dim();
     let q_w = baseline_basis(wavelengths, params.baseline);
     let nb = q_w.as_ref().map_or(0, |q| q.ncols());
-    let reduced = reduce(d, q_w.as_ref())?;
+    // With known spectra, the reduction factors the stacked rows [D; E_kᵀ] (one extra row per
+    // known spectrum): rows of G for the samples, H for the known spectra.
+    let (reduced, known_reduced) = if known.species.is_empty() {
+        (reduce(d, q_w.as_ref())?, Array2::zeros((0, 1)))
+    } else {
+        let e = if masked {
+            known.values.select(ndarray::Axis(1), &used)
+        } else {
+            known.values.clone()
+        };
+        let stacked = ndarray::concatenate![ndarray::Axis(0), d.view(), e.view()];
+        let g = reduce(&stacked, q_w.as_ref())?;
+        (
+            g.slice(ndarray::s![..ns, ..]).to_owned(),
+            g.slice(ndarray::s![ns.., ..]).to_owned(),
+        )
+    };
     let m = absorbing.len() * (params.spectra_temperature.order() + 1);
     let n_linear = m * nw + nb * ns - m * nb;
     let unknowns = free.len() + n_linear;
@@ -803,6 +889,9 @@ fn build_problem<'a>(
         absorbing,
         spectra_temperature: params.spectra_temperature,
         reduced,
+        known: known.species,
+        known_reduced,
+        known_values: known.values,
         batch: Mutex::new(SpeciationBatch::new(model, ns, Derivatives::Skip)),
         medium,
     };
@@ -887,7 +976,9 @@ pub fn fit_with_progress(
         upper: upper.clone(),
         ..params.solver.clone()
     };
-    // The solver runs from the best start; the next two are tried only if it does not converge.
+    // The solver runs from the best start; the next two are tried only if it does not converge
+    // or converges to a degenerate solution (a species driven out of existence: a plateau of
+    // the cost, not the answer to the model as posed).
     let mut best: Option<lm::LmOutcome> = None;
     let mut last_error = None;
     let mut runs = 0;
@@ -902,7 +993,10 @@ pub fn fit_with_progress(
             }
             Err(e) => last_error = Some(e.to_string()),
         }
-        if best.as_ref().is_some_and(|b| b.termination.converged()) {
+        if best
+            .as_ref()
+            .is_some_and(|b| b.termination.converged() && !has_vanished_species(problem.varpro(), &b.param))
+        {
             break;
         }
     }
@@ -945,6 +1039,7 @@ pub fn fit_with_progress(
             (a.value - b.value).abs() > 5.0 * a.standard_error.max(b.standard_error).max(1e-12)
         });
         let delta_chi2 = (mirror.rss - fit.rss) / (fit.sigma * fit.sigma);
+        fit.mirror_delta_chi2 = Some(if distinct { delta_chi2 } else { 0.0 });
         if distinct && delta_chi2.abs() < MIRROR_DELTA_CHI2 {
             // Prior knowledge decides: a solution that breaks a declared ε ceiling loses.
             let (keep, other, chosen_by_prior) =
@@ -954,10 +1049,12 @@ pub fn fit_with_progress(
                     (fit, mirror, false)
                 };
             let mut keep = keep;
+            let delta_chi2 = (other.rss - keep.rss) / (keep.sigma * keep.sigma);
+            keep.mirror_delta_chi2 = Some(delta_chi2);
             keep.alternatives.push(AlternativeSolution {
                 parameters: other.parameters.iter().map(|p| p.value).collect(),
                 rss: other.rss,
-                delta_chi2: (other.rss - keep.rss) / (keep.sigma * keep.sigma),
+                delta_chi2,
                 ceiling_violations: other.ceiling_violations.clone(),
                 chosen_by_prior,
             });
@@ -967,6 +1064,20 @@ pub fn fit_with_progress(
     let theta: Array1<f64> = fit.parameters.iter().map(|p| p.value).collect();
     fit.residual_singular_values = residual_singular_values(&problem, &theta)?;
     Ok(fit)
+}
+
+/// Whether a fitted-spectrum species has a negligible concentration in every sample at θ
+/// (below 1e-9 of the largest concentration of any species): the solver has driven it out of
+/// the model.
+fn has_vanished_species(problem: &VarproProblem<'_>, theta: &Array1<f64>) -> bool {
+    let Ok((c, _)) = problem.speciate(theta, false) else {
+        return false;
+    };
+    let cmax = c.iter().fold(0.0f64, |m, v| m.max(*v));
+    problem
+        .absorbing
+        .iter()
+        .any(|&k| c.column(k).iter().all(|&v| v <= 1e-9 * cmax))
 }
 
 /// Singular values of the reduced residual Q_X·G at θ (those of the full residual matrix, since
@@ -991,7 +1102,7 @@ fn residual_singular_values(fitted: &FitProblem<'_>, theta: &Array1<f64>) -> Res
     let proj = problem
         .project(problem.design(c.view()))
         .map_err(|e| HardFitError::Solver(e.to_string()))?;
-    let r = problem.residual_matrix(&proj);
+    let r = problem.residual_matrix(&proj, &problem.target(c.view()));
     Ok(r.svddc(JobSvd::None)
         .map(|(_, sv, _)| sv.to_vec())
         .unwrap_or_default())
@@ -1249,7 +1360,11 @@ fn summarise(
         )),
     };
     let (rss, n_data, n_linear) = match &columns {
-        None => (sum_sq(problem.residual_matrix(&proj).view()), ns * nw, n_linear),
+        None => (
+            problem.residual_sum_of_squares(&proj, &problem.target(c.view())),
+            ns * nw,
+            n_linear,
+        ),
         Some((sol, n_data)) => (sol.rss, *n_data, sol.passive),
     };
     // filled in by `fit` for the solution it keeps (an SVD per alternative is not needed)
@@ -1331,8 +1446,11 @@ fn summarise(
             standard,
         });
     }
-    // Spectra from the full data: S = (X⁺ D)ᵀ, standard errors σ √diag((XᵀX)⁻¹).
-    let mut spectra = proj.pinv.dot(set.absorbance()).t().to_owned();
+    // Spectra from the full data less the known spectra's part: S = (X⁺ (D − K))ᵀ,
+    // K = diag(b)·C_k·E_kᵀ; standard errors σ √diag((XᵀX)⁻¹).
+    let less_known = problem.less_known(set.absorbance(), c.view());
+    let d = less_known.as_ref();
+    let mut spectra = proj.pinv.dot(d).t().to_owned();
     // At a wavelength the fit left out (a masked point there), the spectrum is estimated from
     // the unmasked samples only, with its own σ√diag((X_uᵀX_u)⁻¹); NaN when they cannot
     // determine it.
@@ -1347,7 +1465,7 @@ fn summarise(
     for j in masked_columns {
         let rows: Vec<usize> = (0..ns).filter(|&i| !set.mask()[[i, j]]).collect();
         let x = proj.x.select(ndarray::Axis(0), &rows);
-        let y = set.absorbance().column(j).select(ndarray::Axis(0), &rows);
+        let y = d.column(j).select(ndarray::Axis(0), &rows);
         let solved = (rows.len() >= x.ncols())
             .then(|| x.least_squares(&y).ok())
             .flatten()
@@ -1398,6 +1516,11 @@ fn summarise(
             .iter()
             .map(|&k| model.species()[k].name.clone())
             .collect(),
+        known_species: problem
+            .known
+            .iter()
+            .map(|&k| model.species()[k].name.clone())
+            .collect(),
         spectra,
         spectra_standard_errors,
         concentrations: c,
@@ -1422,7 +1545,29 @@ fn summarise(
         ceiling_violations: Vec::new(),
         alternatives: Vec::new(),
         nnls_unconverged_nm,
+        mirror_delta_chi2: None,
     })
+}
+
+/// The totals at the measurement temperature (samples × model components, mol/L) and the
+/// speciation [`Medium`] of `set`, from the concentration basis, scale, activity model and
+/// background ionic strength of `params`, exactly as the global fit sets them up. Used by the
+/// hybrid option of the soft resolution so that both resolutions share one definition.
+///
+/// # Errors
+/// Missing totals, a bad density source or ionic strength, and (activity corrections on) a
+/// species without a charge.
+pub(crate) fn speciation_conditions(
+    set: &SpectraSet,
+    model: &ValidModel,
+    params: &HardFitParams,
+) -> Result<(Array2<f64>, Medium), HardFitError> {
+    let (totals, factors) = measurement_totals(set, model, &params.concentrations)?;
+    let medium = speciation_medium(set, params, &factors)?;
+    if !params.activity.is_none() {
+        model.charges()?;
+    }
+    Ok((totals, medium))
 }
 
 #[cfg(test)]
@@ -1430,6 +1575,7 @@ mod tests {
     use super::*;
     use crate::simulate::{Band, Noise, PureSpectrum, SeriesPlan, SimulationPlan, simulate};
     use argmin::core::{Jacobian, Operator};
+    use problem::sum_sq;
 
     pub(crate) fn two_complex_model(lb1: f64, dh1: f64, lb2: f64, dh2: f64) -> ValidModel {
         crate::testing::metal_ligand_model("M", "X", &[(1, lb1, dh1), (2, lb2, dh2)], None)
@@ -1572,5 +1718,89 @@ mod tests {
                 }
             }
         }
+    }
+
+    /// The known spectrum of species `k` of a simulation as a [`FixedSpectrum`] on its grid.
+    fn known_from(sim: &crate::simulate::Simulation, model: &ValidModel, k: usize) -> FixedSpectrum {
+        FixedSpectrum {
+            species: model.species()[k].name.clone(),
+            wavelengths_nm: sim.set.wavelengths_nm().to_vec(),
+            absorptivity: sim.spectra.column(k).to_vec(),
+        }
+    }
+
+    #[test]
+    fn with_a_known_spectrum_the_jacobian_and_normal_equations_match_finite_differences() {
+        use crate::resolve::lm::GaussNewtonProblem;
+        let model = two_complex_model(0.4, 12_000.0, -0.2, 35_000.0);
+        let mut plan = small_plan();
+        plan.noise = Noise::Absorbance { sd_au: 2e-3 };
+        plan.offset_sd_au = 5e-3;
+        let sim = simulate(&model, &plan).unwrap();
+        let free = free_parameters(&model);
+        let params = HardFitParams {
+            baseline: Baseline::Offset,
+            known_spectra: vec![known_from(&sim, &model, 0)], // the free metal M
+            ..HardFitParams::default()
+        };
+        let (problem, _, _) = build_problem(&sim.set, &model, &free, &params).unwrap();
+        assert_eq!(problem.absorbing, vec![2, 3], "MX and MX2 fitted, M held");
+        let theta = ndarray::array![0.7, 5_000.0, 0.3, 20_000.0];
+        let r = problem.apply(&theta).unwrap();
+        let j = problem.jacobian(&theta).unwrap();
+        // Central differences of the residual (no outside value: the definition of J).
+        for p in 0..theta.len() {
+            let h = 1e-6 * theta[p].abs().max(1.0);
+            let mut tp = theta.clone();
+            tp[p] += h;
+            let mut tm = theta.clone();
+            tm[p] -= h;
+            let fd = (problem.apply(&tp).unwrap() - problem.apply(&tm).unwrap()) / (2.0 * h);
+            let err = (&fd - &j.column(p)).iter().fold(0.0f64, |m, v| m.max(v.abs()));
+            let scale = fd.iter().fold(0.0f64, |m, v| m.max(v.abs()));
+            assert!(
+                err <= 1e-5 * scale + 1e-14,
+                "parameter {p}: max |J − FD| = {err}, scale {scale}"
+            );
+        }
+        let ne = problem.normal_equations(&theta).unwrap();
+        approx::assert_relative_eq!(ne.cost, 0.5 * r.dot(&r), max_relative = 1e-12);
+        let g = j.t().dot(&r);
+        let h = j.t().dot(&j);
+        let gs = g.iter().fold(0.0f64, |m, v| m.max(v.abs()));
+        for a in 0..theta.len() {
+            assert!((ne.gradient[a] - g[a]).abs() <= 1e-9 * gs, "gradient {a}");
+            for b in 0..theta.len() {
+                let hs = (h[[a, a]] * h[[b, b]]).sqrt();
+                assert!(
+                    (ne.gauss_newton[[a, b]] - h[[a, b]]).abs() <= 1e-9 * hs,
+                    "JᵀJ[{a},{b}]"
+                );
+            }
+        }
+        // The reduced residual has the norm of the full one, (D − diag(b)·C_M·ε_Mᵀ − X·Sᵀ)(I − P_W)
+        // with S the least-squares spectra: the reduction with known spectra is exact.
+        let (c, _) = problem.speciate(&theta, false).unwrap();
+        let x = problem.design(c.view());
+        let less = problem.less_known(sim.set.absorbance(), c.view());
+        let q_w = baseline_basis(sim.set.wavelengths_nm(), Baseline::Offset).unwrap();
+        let dt = &*less - &less.dot(&q_w).dot(&q_w.t());
+        let s = x.least_squares(&dt).unwrap().solution;
+        let full = &dt - &x.dot(&s);
+        approx::assert_relative_eq!(sum_sq(full.view()), r.dot(&r), max_relative = 1e-9);
+    }
+
+    #[test]
+    fn the_rank_k_update_gives_the_gram_matrix_of_contiguous_and_strided_data() {
+        use rand::Rng;
+        let mut rng = crate::testing::rng(5);
+        let d = Array2::from_shape_fn((7, 40), |_| rng.random_range(-1.0..1.0));
+        let want = d.dot(&d.t());
+        let got = gram_matrix(&d);
+        approx::assert_abs_diff_eq!(got, want, epsilon = 1e-12);
+        // a transposed (column-major) array takes the general product
+        let t = d.t().to_owned().reversed_axes();
+        approx::assert_abs_diff_eq!(gram_matrix(&t), want, epsilon = 1e-12);
+        assert_eq!(gram_matrix(&Array2::zeros((3, 0))).dim(), (3, 3));
     }
 }

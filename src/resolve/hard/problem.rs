@@ -9,6 +9,7 @@ use crate::speciation::{
 use argmin::core::{Error as ArgminError, Jacobian, Operator};
 use ndarray::{Array1, Array2, ArrayView2};
 use ndarray_linalg::{JobSvd, SVDDC};
+use std::borrow::Cow;
 use std::sync::Mutex;
 
 /// Everything fixed during a fit, and a warm-start speciation cache.
@@ -30,6 +31,14 @@ pub(crate) struct VarproProblem<'a> {
     pub spectra_temperature: SpectraTemperature,
     /// The reduced data G (samples × r) with G·Gᵀ = D̃·D̃ᵀ, D̃ = D(I − P_W) (exact).
     pub reduced: Array2<f64>,
+    /// Model species whose spectra are known and held fixed (absorbing, not fitted).
+    pub known: Vec<usize>,
+    /// Their spectra in the reduced coordinates, H (known × r): [G; H] is the factor of the
+    /// Gram matrix of the stacked rows [D̃; Ẽᵀ], Ẽ = (I − P_W)·E the known spectra, so
+    /// ‖D̃ − diag(b)·C_known·Ẽᵀ‖ is ‖G − diag(b)·C_known·H‖ row by row (exact).
+    pub known_reduced: Array2<f64>,
+    /// The known spectra on the data set's full wavelength grid (known × wavelengths), ε.
+    pub known_values: Array2<f64>,
     /// Warm-start speciation buffer.
     pub batch: Mutex<SpeciationBatch>,
     /// Activity corrections and concentration scale of the speciation (ideal by default).
@@ -208,21 +217,58 @@ impl<'a> VarproProblem<'a> {
         })
     }
 
-    /// Residual matrix R = Q_X G (samples × r).
-    pub fn residual_matrix(&self, p: &Projection) -> Array2<f64> {
-        let utg = p.u.t().dot(&self.reduced);
-        &self.reduced - &p.u.dot(&utg)
+    /// diag(b)·C_known·H (samples × r): the known spectra's part of the reduced data at the
+    /// concentrations `c` (linear in `c`, so also its derivative from ∂C).
+    pub fn known_part(&self, c: ArrayView2<f64>) -> Array2<f64> {
+        let mut k = Array2::zeros((c.nrows(), self.known_reduced.ncols()));
+        for (i, mut row) in k.rows_mut().into_iter().enumerate() {
+            for (a, &sp) in self.known.iter().enumerate() {
+                row.scaled_add(self.path_cm[i] * c[[i, sp]], &self.known_reduced.row(a));
+            }
+        }
+        k
     }
 
-    /// ‖Q_X G‖² without forming R: row by row, rᵢ = gᵢ − Σₐ Uᵢₐ (UᵀG)ₐ (subtract, then square:
-    /// no cancellation against ‖G‖²).
-    pub fn residual_sum_of_squares(&self, p: &Projection) -> f64 {
-        let utg = p.u.t().dot(&self.reduced);
-        let mut row = Array1::zeros(self.reduced.ncols());
+    /// The reduced target Y = G − diag(b)·C_known·H at the concentrations `c` (G itself when
+    /// no spectrum is known).
+    pub fn target(&self, c: ArrayView2<f64>) -> Cow<'_, Array2<f64>> {
+        if self.known.is_empty() {
+            Cow::Borrowed(&self.reduced)
+        } else {
+            Cow::Owned(&self.reduced - &self.known_part(c))
+        }
+    }
+
+    /// D − diag(b)·C_known·E_knownᵀ on the full wavelength grid (D itself, borrowed, when no
+    /// spectrum is known): the data the fitted spectra explain.
+    pub fn less_known<'d>(&self, d: &'d Array2<f64>, c: ArrayView2<f64>) -> Cow<'d, Array2<f64>> {
+        if self.known.is_empty() {
+            return Cow::Borrowed(d);
+        }
+        let mut out = d.clone();
+        for (i, mut row) in out.rows_mut().into_iter().enumerate() {
+            for (a, &sp) in self.known.iter().enumerate() {
+                row.scaled_add(-self.path_cm[i] * c[[i, sp]], &self.known_values.row(a));
+            }
+        }
+        Cow::Owned(out)
+    }
+
+    /// Residual matrix R = Q_X Y (samples × r) of the target `y` ([`Self::target`]).
+    pub fn residual_matrix(&self, p: &Projection, y: &Array2<f64>) -> Array2<f64> {
+        let uty = p.u.t().dot(y);
+        y - &p.u.dot(&uty)
+    }
+
+    /// ‖Q_X Y‖² without forming R: row by row, rᵢ = yᵢ − Σₐ Uᵢₐ (UᵀY)ₐ (subtract, then square:
+    /// no cancellation against ‖Y‖²).
+    pub fn residual_sum_of_squares(&self, p: &Projection, y: &Array2<f64>) -> f64 {
+        let uty = p.u.t().dot(y);
+        let mut row = Array1::zeros(y.ncols());
         let mut total = 0.0;
-        for (i, g) in self.reduced.rows().into_iter().enumerate() {
+        for (i, g) in y.rows().into_iter().enumerate() {
             row.assign(&g);
-            for (a, w) in utg.rows().into_iter().enumerate() {
+            for (a, w) in uty.rows().into_iter().enumerate() {
                 row.scaled_add(-p.u[[i, a]], &w);
             }
             total += row.dot(&row);
@@ -244,6 +290,9 @@ impl<'a> VarproProblem<'a> {
             absorbing: self.absorbing.clone(),
             spectra_temperature: self.spectra_temperature,
             reduced: self.reduced.select(ndarray::Axis(0), rows),
+            known: self.known.clone(),
+            known_reduced: self.known_reduced.clone(),
+            known_values: self.known_values.clone(),
             medium: self.medium.select(rows),
             batch: Mutex::new(SpeciationBatch::new(model, rows.len(), Derivatives::Skip)),
         }
@@ -267,7 +316,8 @@ impl Operator for VarproProblem<'_> {
     fn apply(&self, theta: &Array1<f64>) -> Result<Array1<f64>, ArgminError> {
         let (c, _) = self.speciate(theta, false)?;
         let p = self.project(self.design(c.view()))?;
-        Ok(flatten(self.residual_matrix(&p)))
+        let y = self.target(c.view());
+        Ok(flatten(self.residual_matrix(&p, &y)))
     }
 }
 
@@ -275,17 +325,22 @@ impl Jacobian for VarproProblem<'_> {
     type Param = Array1<f64>;
     type Jacobian = Array2<f64>;
 
-    /// Golub–Pereyra: ∂R/∂θ_p = −[Q ∂X_p X⁺ G + (X⁺)ᵀ ∂X_pᵀ R], R = Q G.
+    /// Golub–Pereyra: ∂R/∂θ_p = −[Q (∂X_p X⁺ Y + ∂K_p) + (X⁺)ᵀ ∂X_pᵀ R], R = Q Y,
+    /// Y = G − K, K = diag(b)·C_known·H.
     fn jacobian(&self, theta: &Array1<f64>) -> Result<Array2<f64>, ArgminError> {
         let (c, dc) = self.speciate(theta, true)?;
         let p = self.project(self.design(c.view()))?;
-        let r = self.residual_matrix(&p);
-        let st = p.pinv.dot(&self.reduced); // X⁺G (m × r): spectra in the reduced basis
+        let y = self.target(c.view());
+        let r = self.residual_matrix(&p, &y);
+        let st = p.pinv.dot(&*y); // X⁺Y (m × r): spectra in the reduced basis
         let n = r.len();
         let mut jac = Array2::zeros((n, self.free.len()));
         for (q, dcq) in dc.iter().enumerate() {
             let dx = self.design(dcq.view());
-            let a = dx.dot(&st);
+            let mut a = dx.dot(&st);
+            if !self.known.is_empty() {
+                a += &self.known_part(dcq.view());
+            }
             let qa = &a - &p.u.dot(&p.u.t().dot(&a));
             let b = p.pinv.t().dot(&dx.t().dot(&r));
             let col = -(qa + b);
@@ -309,32 +364,52 @@ impl Jacobian for VarproProblem<'_> {
 ///
 /// (the cross terms vanish because Q_X P = 0), so no array larger than samples × rank is formed
 /// and the cost per evaluation is O(samples · rank · m · p).
+///
+/// With known spectra the target is Y(θ) = G − K(θ), K = diag(b)·C_known·H, G replaced by Y
+/// above, and A_p gains Q_X ∂K_p (also in range Q_X): (Jᵀr)_p gains −⟨∂K_p, R⟩ and ⟨A_p, A_q⟩
+/// is then formed from the A_p themselves (samples × r each).
 impl GaussNewtonProblem for VarproProblem<'_> {
     fn cost(&self, theta: &Array1<f64>) -> Result<f64, ArgminError> {
         let (c, _) = self.speciate(theta, false)?;
         let p = self.project(self.design(c.view()))?;
-        let cost = 0.5 * self.residual_sum_of_squares(&p);
+        let y = self.target(c.view());
+        let cost = 0.5 * self.residual_sum_of_squares(&p, &y);
         Ok(if cost.is_finite() { cost } else { f64::INFINITY })
     }
 
     fn normal_equations(&self, theta: &Array1<f64>) -> Result<NormalEquations, ArgminError> {
         let (c, dc) = self.speciate(theta, true)?;
         let proj = self.project(self.design(c.view()))?;
-        let r = self.residual_matrix(&proj);
+        let y = self.target(c.view());
+        let r = self.residual_matrix(&proj, &y);
         let p_mat = proj.pinv.t(); // P = X⁺ᵀ, samples × m
-        let gtp = self.reduced.t().dot(&p_mat); // GᵀP, rank × m
-        let rgp = r.dot(&gtp); // R·GᵀP = Q_X M P, samples × m
-        let n_mat = gtp.t().dot(&gtp); // PᵀMP, m × m
+        let gtp = y.t().dot(&p_mat); // YᵀP, rank × m
+        let rgp = r.dot(&gtp); // R·YᵀP = Q_X M P, samples × m
         let k_mat = proj.pinv.dot(&p_mat); // PᵀP, m × m
         let dx: Vec<Array2<f64>> = dc.iter().map(|d| self.design(d.view())).collect();
-        let qdx: Vec<Array2<f64>> = dx.iter().map(|d| d - &proj.u.dot(&proj.u.t().dot(d))).collect();
         let rtdx: Vec<Array2<f64>> = dx.iter().map(|d| r.t().dot(d)).collect();
         let np = dx.len();
-        let gradient: Array1<f64> = dx.iter().map(|d| -(d * &rgp).sum()).collect();
+        let mut gradient: Array1<f64> = dx.iter().map(|d| -(d * &rgp).sum()).collect();
+        // ⟨A_p, A_q⟩: through PᵀMP without known spectra; from the A_p themselves with them.
+        let a_inner: Box<dyn Fn(usize, usize) -> f64> = if self.known.is_empty() {
+            let n_mat = gtp.t().dot(&gtp); // PᵀMP, m × m
+            let qdx: Vec<Array2<f64>> = dx.iter().map(|d| d - &proj.u.dot(&proj.u.t().dot(d))).collect();
+            Box::new(move |a, b| (qdx[a].t().dot(&qdx[b]) * &n_mat).sum())
+        } else {
+            let st = proj.pinv.dot(&*y); // X⁺Y
+            let mut aps = Vec::with_capacity(np);
+            for (q, dcq) in dc.iter().enumerate() {
+                let dk = self.known_part(dcq.view());
+                gradient[q] -= (&dk * &r).sum();
+                let z = dx[q].dot(&st) + dk;
+                aps.push(&z - &proj.u.dot(&proj.u.t().dot(&z)));
+            }
+            Box::new(move |a, b| (&aps[a] * &aps[b]).sum())
+        };
         let mut gauss_newton = Array2::zeros((np, np));
         for a in 0..np {
             for b in 0..=a {
-                let aa = (qdx[a].t().dot(&qdx[b]) * &n_mat).sum();
+                let aa = a_inner(a, b);
                 let bb = (rtdx[b].t().dot(&rtdx[a]) * &k_mat).sum();
                 gauss_newton[[a, b]] = aa + bb;
                 gauss_newton[[b, a]] = aa + bb;

@@ -54,6 +54,10 @@
 //! Optionally ([`Hybrid`]) the profiles of selected species follow an equilibrium model whose
 //! parameters are refitted to the soft profiles at every iteration (de Juan, Maeder, Martínez,
 //! Tauler, Chemom. Intell. Lab. Syst. 54 (2000) 123); see [`hybrid`] for the variant used.
+//! The model's speciation runs in the same solution medium as the global fit's, with the same
+//! settings: activity corrections with a background electrolyte (the ionic strength iterated
+//! to self-consistency in each sample), the molal scale, thermal expansion of the totals. Off
+//! by default (an ideal medium: conditional constants, totals as given).
 //!
 //! # Examples
 //! ```
@@ -82,11 +86,13 @@ mod unimodal;
 pub use bands::{BandParams, BoundaryProfiles, SpeciesBand, ValidBandParams, band_boundaries};
 pub use hybrid::{HybridParameter, HybridResult};
 
+use super::hard::{ConcentrationBasis, HardFitError, HardFitParams};
 use super::linear::{self, Constraint, LinearError, NnlsParams, nnls_normal};
 use super::lm::LmParams;
-use crate::data::{SpectraSet, SpectraSetError};
+use crate::data::{Sample, SpectraSet, SpectraSetError};
 use crate::factor::{FactorError, decompose};
 use crate::speciation::{EquilibriumModel, SpeciationError, ValidModel};
+use crate::thermo::{ActivityCorrection, ConcentrationScale};
 use ndarray::{Array1, Array2, ArrayView1, ArrayView2, Axis};
 use ndarray_linalg::LeastSquaresSvd;
 use serde::{Deserialize, Serialize};
@@ -329,6 +335,41 @@ pub struct HybridSpecies {
 }
 
 /// The hybrid hard–soft option: an equilibrium model for some of the profiles.
+///
+/// The solution medium of the model's speciation has the same settings, with the same
+/// meaning, as the global fit's ([`HardFitParams`]): `concentrations`, `concentration_scale`,
+/// `activity` and `medium_ionic_strength`. By default it is ideal: totals as given, molar
+/// scale, no activity corrections (conditional constants for a constant ionic medium).
+///
+/// # Examples
+/// ```
+/// use isosbestic::resolve::soft::{Hybrid, HybridSpecies, SoftParams};
+/// use isosbestic::speciation::EquilibriumModel;
+/// use isosbestic::thermo::{ActivityCorrection, Davies};
+/// let model = EquilibriumModel::from_toml_str(r#"
+///     components = [{ name = "M", absorbs = true, charge = 2 }, { name = "X", absorbs = false, charge = -1 }]
+///     [[species]]
+///     name = "MX"
+///     stoichiometry = { M = 1, X = 1 }
+///     absorbs = true
+///     law = { kind = "van_t_hoff", log_beta_ref = { value = 1.0 }, dh_ref = { value = 0.0 } }
+/// "#)?;
+/// let species = vec![
+///     HybridSpecies { resolved: 0, model_species: "M".into() },
+///     HybridSpecies { resolved: 1, model_species: "MX".into() },
+/// ];
+/// let hybrid = Hybrid {
+///     activity: ActivityCorrection::Davies(Davies::default()),
+///     medium_ionic_strength: 0.1,
+///     ..Hybrid::new(model, species)
+/// };
+/// assert!(SoftParams { hybrid: Some(hybrid.clone()), ..SoftParams::default() }.check().is_ok());
+/// // a negative background ionic strength is refused, naming the setting
+/// let bad = Hybrid { medium_ionic_strength: -0.1, ..hybrid };
+/// let e = SoftParams { hybrid: Some(bad), ..SoftParams::default() }.check().unwrap_err();
+/// assert!(e.to_string().contains("hybrid.medium_ionic_strength"));
+/// # Ok::<(), Box<dyn std::error::Error>>(())
+/// ```
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
 #[serde(deny_unknown_fields)]
 pub struct Hybrid {
@@ -339,6 +380,52 @@ pub struct Hybrid {
     /// Settings of the parameter fit (default [`LmParams::default`]).
     #[serde(default)]
     pub solver: LmParams,
+    /// How the totals at the measurement temperature are obtained from those prepared (default
+    /// as given; thermal expansion needs each sample's preparation temperature, see
+    /// [`SampleLayout::preparation_temperatures_k`]; explicit factors are one per row of D,
+    /// i.e. per measurement sample in [`resolve`]).
+    #[serde(default)]
+    pub concentrations: ConcentrationBasis,
+    /// Concentration scale of the model's formation constants (default molar); on the molal
+    /// scale the speciation runs in mol/kg (see [`HardFitParams::concentration_scale`]).
+    #[serde(default)]
+    pub concentration_scale: ConcentrationScale,
+    /// Activity corrections (default none). When on, the fitted log β are thermodynamic
+    /// (infinite dilution) constants and every model species needs a charge.
+    #[serde(default)]
+    pub activity: ActivityCorrection,
+    /// Ionic strength of the inert background electrolyte, mol/L as prepared (scaled like the
+    /// totals); used only with `activity`.
+    #[serde(default)]
+    pub medium_ionic_strength: f64,
+}
+
+impl Hybrid {
+    /// The hybrid option for `model` and `species`, with the default solver and an ideal
+    /// medium (totals as given, molar scale, no activity corrections).
+    pub fn new(model: EquilibriumModel, species: Vec<HybridSpecies>) -> Self {
+        Self {
+            model,
+            species,
+            solver: LmParams::default(),
+            concentrations: ConcentrationBasis::AsGiven,
+            concentration_scale: ConcentrationScale::Molar,
+            activity: ActivityCorrection::None,
+            medium_ionic_strength: 0.0,
+        }
+    }
+
+    /// The global fit's settings that describe this hybrid's solution medium (every other
+    /// setting at its default).
+    fn medium_params(&self) -> HardFitParams {
+        HardFitParams {
+            concentrations: self.concentrations.clone(),
+            concentration_scale: self.concentration_scale,
+            activity: self.activity,
+            medium_ionic_strength: self.medium_ionic_strength,
+            ..HardFitParams::default()
+        }
+    }
 }
 
 /// Settings of a soft resolution (unchecked; [`SoftParams::check`] validates them).
@@ -566,6 +653,16 @@ impl SoftParams {
                         })?;
                     pairs.push((hs.resolved, m));
                 }
+                let i_bg = h.medium_ionic_strength;
+                if !(i_bg.is_finite() && i_bg >= 0.0) {
+                    return Err(invalid(
+                        "hybrid.medium_ionic_strength",
+                        format!("{i_bg} is not a non-negative ionic strength (mol/L)"),
+                    ));
+                }
+                if !h.activity.is_none() {
+                    model.charges().map_err(SoftError::Model)?;
+                }
                 Some((model, pairs))
             }
         };
@@ -586,13 +683,16 @@ pub struct SampleLayout {
     pub path_cm: Vec<f64>,
     /// Component names of `totals_m`.
     pub components: Vec<String>,
-    /// Totals, samples × components, mol/L (used by closure only).
+    /// Totals, samples × components, mol/L as prepared (used by closure and the hybrid option).
     pub totals_m: Array2<f64>,
+    /// Temperature at which each sample's totals were made up, K (used only by the hybrid
+    /// option's thermal-expansion correction).
+    pub preparation_temperatures_k: Vec<f64>,
 }
 
 impl SampleLayout {
     /// One series of `n` samples in order (ids "0", "1", …, temperatures 0, 1, … K as a mere
-    /// order), path 1 cm, no totals: the layout for a bare matrix.
+    /// order), path 1 cm, no totals, prepared at 25 °C: the layout for a bare matrix.
     ///
     /// # Examples
     /// ```
@@ -607,6 +707,7 @@ impl SampleLayout {
             path_cm: vec![1.0; n],
             components: Vec::new(),
             totals_m: Array2::zeros((n, 0)),
+            preparation_temperatures_k: vec![crate::data::DEFAULT_PREPARATION_K; n],
         }
     }
 
@@ -619,6 +720,11 @@ impl SampleLayout {
             path_cm: set.path_lengths_cm().to_vec(),
             components: set.components().to_vec(),
             totals_m: set.totals_matrix(),
+            preparation_temperatures_k: set
+                .samples()
+                .iter()
+                .map(|s| s.preparation_temperature_k)
+                .collect(),
         }
     }
 
@@ -708,11 +814,12 @@ impl Prepared {
             layout.temperatures_k.len(),
             layout.path_cm.len(),
             layout.totals_m.nrows(),
+            layout.preparation_temperatures_k.len(),
         ];
         if lens.iter().any(|&l| l != ns) || layout.totals_m.ncols() != layout.components.len() {
             return Err(SoftError::Shape {
                 what: format!(
-                    "D has {ns} samples; the layout has ids/series/temperatures/paths/totals rows {lens:?} and {} totals columns for {} components",
+                    "D has {ns} samples; the layout has ids/series/temperatures/paths/totals/preparation temperatures rows {lens:?} and {} totals columns for {} components",
                     layout.totals_m.ncols(),
                     layout.components.len()
                 ),
@@ -899,6 +1006,81 @@ impl Prepared {
     }
 }
 
+/// The hybrid model's speciation conditions: the totals at the measurement temperature and
+/// the solution medium, set up by the global fit's own code from the layout's samples.
+fn hybrid_conditions(
+    layout: &SampleLayout,
+    model: &ValidModel,
+    hybrid: &Hybrid,
+) -> Result<hybrid::Conditions, SoftError> {
+    if let Some(name) = model
+        .component_names()
+        .iter()
+        .find(|name| !layout.components.contains(name))
+    {
+        return Err(SoftError::MissingTotal {
+            component: name.clone(),
+        });
+    }
+    let ns = layout.ids.len();
+    let ideal = matches!(hybrid.concentrations, ConcentrationBasis::AsGiven)
+        && matches!(hybrid.concentration_scale, ConcentrationScale::Molar)
+        && hybrid.activity.is_none();
+    if ideal {
+        // the totals as given in an ideal medium (any totals the layout holds, e.g. a negative
+        // proton total, are passed on to the speciation unchanged)
+        let mut totals = Array2::zeros((ns, model.n_components()));
+        for (m, name) in model.component_names().iter().enumerate() {
+            if let Some(col) = layout.components.iter().position(|c| c == name) {
+                totals.column_mut(m).assign(&layout.totals_m.column(col));
+            }
+        }
+        return Ok(hybrid::Conditions {
+            temperatures_k: layout.temperatures_k.clone(),
+            totals,
+            ids: layout.ids.clone(),
+            medium: crate::speciation::Medium::default(),
+        });
+    }
+    // The layout's samples as a spectra set with one dummy wavelength: the global fit's setup
+    // reads the samples only.
+    let samples = (0..ns)
+        .map(|i| {
+            let mut sample = Sample::new(
+                layout.ids[i].clone(),
+                layout.series[i].clone(),
+                layout.temperatures_k[i],
+                layout.path_cm[i],
+            );
+            sample.preparation_temperature_k = layout.preparation_temperatures_k[i];
+            for (m, name) in layout.components.iter().enumerate() {
+                sample = sample.with_total(name.clone(), layout.totals_m[[i, m]]);
+            }
+            sample
+        })
+        .collect();
+    let set = SpectraSet::new(
+        Array1::from(vec![1.0]),
+        Array2::zeros((ns, 1)),
+        samples,
+        layout.components.clone(),
+    )?;
+    let (totals, medium) = crate::resolve::hard::speciation_conditions(&set, model, &hybrid.medium_params())
+        .map_err(|e| match e {
+            HardFitError::Model(e) => SoftError::Model(e),
+            other => SoftError::InvalidParameter {
+                name: "hybrid",
+                reason: other.to_string(),
+            },
+        })?;
+    Ok(hybrid::Conditions {
+        temperatures_k: layout.temperatures_k.clone(),
+        totals,
+        ids: layout.ids.clone(),
+        medium,
+    })
+}
+
 fn residual_ss(d: ArrayView2<f64>, path: &Array1<f64>, c: &Array2<f64>, s: &Array2<f64>) -> f64 {
     let fit = (c * &path.view().insert_axis(Axis(1))).dot(&s.t());
     (&d - &fit).iter().map(|v| v * v).sum()
@@ -1005,26 +1187,13 @@ pub fn resolve_matrix(
         }
     };
     let mut hybrid = match (hybrid_setup, &params.hybrid) {
-        (Some((model, pairs)), Some(h)) => {
-            let mut totals = Array2::zeros((ns, model.n_components()));
-            for (m, name) in model.component_names().iter().enumerate() {
-                let col = layout.components.iter().position(|c| c == name).ok_or_else(|| {
-                    SoftError::MissingTotal {
-                        component: name.clone(),
-                    }
-                })?;
-                totals.column_mut(m).assign(&layout.totals_m.column(col));
-            }
-            Some(hybrid::HybridState::new(
-                model.clone(),
-                pairs.clone(),
-                layout.temperatures_k.clone(),
-                totals,
-                layout.ids.clone(),
-                h.solver.clone(),
-                prep.closure.is_some(),
-            ))
-        }
+        (Some((model, pairs)), Some(h)) => Some(hybrid::HybridState::new(
+            model.clone(),
+            pairs.clone(),
+            hybrid_conditions(layout, model, h)?,
+            h.solver.clone(),
+            prep.closure.is_some(),
+        )),
         _ => None,
     };
     let ssd: f64 = d.iter().map(|v| v * v).sum::<f64>().max(f64::MIN_POSITIVE);
