@@ -25,7 +25,11 @@ pub struct KnownSpectrumTable {
     pub lines: Vec<u64>,
 }
 
-/// Parses the known spectrum of `species` (see the [module docs](self) for the columns).
+/// Parses the known spectrum of `species`.
+///
+/// Columns: `wavelength_nm`; the ε column (L mol⁻¹ cm⁻¹) `eps_<species>` (as an earlier fit's
+/// `pure_spectra.csv` writes it), else `epsilon`, else — when the table has exactly two
+/// columns — the second one; other columns are ignored. Wavelengths must increase strictly.
 ///
 /// # Errors
 /// [`CsvError`] naming the file, line and column: no wavelength or ε column, non-numeric or
