@@ -209,6 +209,17 @@ fn absorbance_weights_shrink_the_uncertainty_and_their_intervals_cover_the_truth
         "σ̂ = {}",
         weighted_fit.sigma
     );
+    // the residual sd of a weighted fit is a scale factor, not AU: the report says so and
+    // draws no lack-of-fit comparison with a noise level in AU
+    assert!(weighted_fit.weighted && !uniform_fit.weighted);
+    assert_eq!(uniform_fit.residual_unit(), "AU");
+    assert_ne!(weighted_fit.residual_unit(), "AU");
+    let d = isosbestic::report::fit::diagnose(&noisy, &weighted_fit, &weighted);
+    assert!(
+        !d.iter()
+            .any(|x| matches!(x, isosbestic::report::fit::Diagnostic::LackOfFit { .. })),
+        "{d:?}"
+    );
 
     // coverage over many realisations on a small grid
     let small = simulate(&truth, &plan(temperatures(5), 20.0)).unwrap();

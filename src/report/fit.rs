@@ -176,6 +176,12 @@ pub enum Diagnostic {
         /// Δχ² of the mirror-side solution against the reported one (0 when it came back).
         delta_chi2: f64,
     },
+    /// The non-negative spectra solve stopped at its iteration limit at some wavelengths (ε
+    /// there are feasible but may not be optimal).
+    NnlsIterationLimit {
+        /// The wavelengths concerned, nm.
+        wavelengths_nm: Vec<f64>,
+    },
     /// A fitted spectrum breaks a declared ε ceiling.
     CeilingBroken {
         /// Which species and by how much.
@@ -252,6 +258,12 @@ impl fmt::Display for Diagnostic {
                 }
                 write!(f, "the known spectra of {} decide", species.join(", "))
             }
+            Self::NnlsIterationLimit { wavelengths_nm } => write!(
+                f,
+                "the non-negative spectra solve reached its iteration limit at {} wavelength(s) (first {:?} nm): ε there may not be optimal",
+                wavelengths_nm.len(),
+                wavelengths_nm.first().copied().unwrap_or(f64::NAN)
+            ),
             Self::CeilingBroken { detail } => {
                 write!(f, "fitted spectrum breaks its declared ceiling: {detail}")
             }
@@ -536,7 +548,14 @@ pub fn diagnose(set: &SpectraSet, fit: &HardFit, params: &HardFitParams) -> Vec<
         hard::Baseline::Offset => 1,
         hard::Baseline::OffsetAndSlope => 2,
     };
-    if let Ok(dec) = crate::factor::decompose(set.absorbance().view())
+    if !fit.nnls_unconverged_nm.is_empty() {
+        out.push(Diagnostic::NnlsIterationLimit {
+            wavelengths_nm: fit.nnls_unconverged_nm.clone(),
+        });
+    }
+    // (A weighted fit's residual sd is a unitless scale factor: nothing to compare in AU.)
+    if !fit.weighted
+        && let Ok(dec) = crate::factor::decompose(set.absorbance().view())
         && let Some(noise) = dec.noise_estimate(columns + fit.known_species.len() + baseline_terms)
         && noise > 0.0
         && fit.residual_sd > 1.5 * noise
@@ -754,10 +773,11 @@ pub fn write_fit_page(
         fit_section = fit_section.with_row(row);
     }
     fit_section = fit_section.with_note(format!(
-        "{} samples × {} wavelengths; residual sd {:.3e} AU (ν = {}); solver: {:?} after {} iterations.",
+        "{} samples × {} wavelengths; residual sd {:.3e} {} (ν = {}); solver: {:?} after {} iterations.",
         report.sample_ids.len(),
         report.wavelengths_nm.len(),
         report.fit.residual_sd,
+        report.fit.residual_unit(),
         report.fit.degrees_of_freedom,
         report.fit.termination,
         report.fit.iterations
@@ -929,8 +949,10 @@ impl fmt::Display for FitReport {
         )?;
         writeln!(
             f,
-            "residual sd {:.3e} AU (ν = {})",
-            fit.residual_sd, fit.degrees_of_freedom
+            "residual sd {:.3e} {} (ν = {})",
+            fit.residual_sd,
+            fit.residual_unit(),
+            fit.degrees_of_freedom
         )?;
         writeln!(f)?;
         writeln!(

@@ -172,7 +172,12 @@ pub fn hard_fit_rows(fit: &HardFit) -> Vec<SummaryRow> {
         }
     }
     let (sd, _) = format_with_uncertainty(fit.residual_sd, f64::NAN);
-    rows.push(SummaryRow::new("residual standard deviation", sd, None, "AU"));
+    rows.push(SummaryRow::new(
+        "residual standard deviation",
+        sd,
+        None,
+        fit.residual_unit(),
+    ));
     rows.push(SummaryRow::new(
         "degrees of freedom",
         fit.degrees_of_freedom.to_string(),

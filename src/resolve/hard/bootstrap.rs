@@ -138,69 +138,20 @@ pub fn fitted_values(
     params: &HardFitParams,
     fit: &HardFit,
 ) -> Result<Array2<f64>, HardFitError> {
-    let d = set.absorbance();
-    let (ns, nw) = d.dim();
-    let na = fit.absorbing_species.len();
-    let order = params.spectra_temperature.order();
-    let m = na * (order + 1);
-    if fit.concentrations.nrows() != ns || fit.spectra.dim() != (nw, m) {
-        return Err(HardFitError::Settings(format!(
-            "the fit ({} samples, spectra {:?}) does not belong to this data set ({ns} samples × {nw} \
-             wavelengths, {m} spectra)",
-            fit.concentrations.nrows(),
-            fit.spectra.dim()
-        )));
+    if super::columnwise::requested(params) {
+        return super::columnwise::fitted_values(set, params, fit);
     }
-    let cols: Vec<usize> = fit
-        .absorbing_species
-        .iter()
-        .map(|name| {
-            fit.species
-                .iter()
-                .position(|s| s == name)
-                .ok_or_else(|| HardFitError::Settings(format!("species '{name}' missing from the fit")))
-        })
-        .collect::<Result<_, _>>()?;
-    // The known spectra's part K = diag(b)·C_k·E_kᵀ (held fixed in the fit).
-    let mut known_part = (!fit.known_species.is_empty()).then(|| Array2::<f64>::zeros((ns, nw)));
-    for name in &fit.known_species {
-        let spectrum = params
-            .known_spectra
-            .iter()
-            .find(|s| &s.species == name)
-            .ok_or_else(|| HardFitError::Settings(format!("no known spectrum of '{name}' in the settings")))?
-            .on_grid(set.wavelengths_nm())?;
-        let k = fit
-            .species
-            .iter()
-            .position(|s| s == name)
-            .ok_or_else(|| HardFitError::Settings(format!("species '{name}' missing from the fit")))?;
-        if let Some(part) = known_part.as_mut() {
-            for (i, mut row) in part.rows_mut().into_iter().enumerate() {
-                row.scaled_add(set.samples()[i].path_cm * fit.concentrations[[i, k]], &spectrum);
-            }
-        }
-    }
+    let x = fit_design(set, params, fit)?;
+    let (ns, m) = x.dim();
+    let known_part = known_part(set, params, fit)?;
     let less_known;
     let d = match &known_part {
-        None => d,
+        None => set.absorbance(),
         Some(part) => {
-            less_known = d - part;
+            less_known = set.absorbance() - part;
             &less_known
         }
     };
-    let t_eps = params.spectra_temperature.reference_k();
-    let mut x = Array2::zeros((ns, m));
-    for (i, sample) in set.samples().iter().enumerate() {
-        let dt = sample.temperature_k - t_eps;
-        let mut w = sample.path_cm;
-        for o in 0..=order {
-            for (a, &k) in cols.iter().enumerate() {
-                x[[i, o * na + a]] = w * fit.concentrations[[i, k]];
-            }
-            w *= dt;
-        }
-    }
     // D̂ = P_X·D + Q_X·D·P_W: the projection onto the range of X (with the fit's rank rule),
     // which is X·Ŝᵀ without the amplification of X⁺ when X is nearly rank-deficient, plus
     // the baseline terms (the projection of the rest onto span{1, λ} or {1}).
@@ -236,6 +187,86 @@ pub fn fitted_values(
         fitted += part;
     }
     Ok(fitted)
+}
+
+/// The design X (samples × spectra columns) of a fit rebuilt from its concentrations, with the
+/// shapes checked against `set`.
+///
+/// # Errors
+/// [`HardFitError::Settings`] when `fit` does not belong to `set` (shapes or species differ).
+pub(super) fn fit_design(
+    set: &SpectraSet,
+    params: &HardFitParams,
+    fit: &HardFit,
+) -> Result<Array2<f64>, HardFitError> {
+    let (ns, nw) = set.absorbance().dim();
+    let na = fit.absorbing_species.len();
+    let order = params.spectra_temperature.order();
+    let m = na * (order + 1);
+    if fit.concentrations.nrows() != ns || fit.spectra.dim() != (nw, m) {
+        return Err(HardFitError::Settings(format!(
+            "the fit ({} samples, spectra {:?}) does not belong to this data set ({ns} samples × {nw} \
+             wavelengths, {m} spectra)",
+            fit.concentrations.nrows(),
+            fit.spectra.dim()
+        )));
+    }
+    let cols: Vec<usize> = fit
+        .absorbing_species
+        .iter()
+        .map(|name| species_column(fit, name))
+        .collect::<Result<_, _>>()?;
+    let t_eps = params.spectra_temperature.reference_k();
+    let mut x = Array2::zeros((ns, m));
+    for (i, sample) in set.samples().iter().enumerate() {
+        let dt = sample.temperature_k - t_eps;
+        let mut w = sample.path_cm;
+        for o in 0..=order {
+            for (a, &k) in cols.iter().enumerate() {
+                x[[i, o * na + a]] = w * fit.concentrations[[i, k]];
+            }
+            w *= dt;
+        }
+    }
+    Ok(x)
+}
+
+/// Column of `name` in the fit's concentrations.
+fn species_column(fit: &HardFit, name: &str) -> Result<usize, HardFitError> {
+    fit.species
+        .iter()
+        .position(|s| s == name)
+        .ok_or_else(|| HardFitError::Settings(format!("species '{name}' missing from the fit")))
+}
+
+/// The known spectra's part K = diag(b)·C_k·E_kᵀ of a fit (samples × wavelengths), None when
+/// no spectrum was held fixed.
+///
+/// # Errors
+/// [`HardFitError::Settings`] when a known species' spectrum is not in `params`, or
+/// [`HardFitError::KnownSpectrum`] when it cannot be placed on the set's wavelengths.
+pub(super) fn known_part(
+    set: &SpectraSet,
+    params: &HardFitParams,
+    fit: &HardFit,
+) -> Result<Option<Array2<f64>>, HardFitError> {
+    if fit.known_species.is_empty() {
+        return Ok(None);
+    }
+    let mut part = Array2::<f64>::zeros(set.absorbance().dim());
+    for name in &fit.known_species {
+        let spectrum = params
+            .known_spectra
+            .iter()
+            .find(|s| &s.species == name)
+            .ok_or_else(|| HardFitError::Settings(format!("no known spectrum of '{name}' in the settings")))?
+            .on_grid(set.wavelengths_nm())?;
+        let k = species_column(fit, name)?;
+        for (i, mut row) in part.rows_mut().into_iter().enumerate() {
+            row.scaled_add(set.samples()[i].path_cm * fit.concentrations[[i, k]], &spectrum);
+        }
+    }
+    Ok(Some(part))
 }
 
 /// The model with the law parameters set to the fitted values (the refits start there).

@@ -842,59 +842,12 @@ pub(super) fn fitted_values(
     params: &HardFitParams,
     fit: &super::HardFit,
 ) -> Result<Array2<f64>, HardFitError> {
-    let ns = set.n_samples();
-    let na = fit.absorbing_species.len();
-    let order = params.spectra_temperature.order();
-    let m = na * (order + 1);
-    if fit.concentrations.nrows() != ns || fit.spectra.dim() != (set.n_wavelengths(), m) {
-        return Err(HardFitError::Settings(format!(
-            "the fit ({} samples, spectra {:?}) does not belong to this data set ({ns} samples × {} \
-             wavelengths, {m} spectra)",
-            fit.concentrations.nrows(),
-            fit.spectra.dim(),
-            set.n_wavelengths()
-        )));
-    }
-    let cols: Vec<usize> = fit
-        .absorbing_species
-        .iter()
-        .map(|name| {
-            fit.species
-                .iter()
-                .position(|s| s == name)
-                .ok_or_else(|| HardFitError::Settings(format!("species '{name}' missing from the fit")))
-        })
-        .collect::<Result<_, _>>()?;
-    let t_eps = params.spectra_temperature.reference_k();
-    let mut x = Array2::zeros((ns, m));
-    for (i, sample) in set.samples().iter().enumerate() {
-        let dt = sample.temperature_k - t_eps;
-        let mut w = sample.path_cm;
-        for o in 0..=order {
-            for (a, &k) in cols.iter().enumerate() {
-                x[[i, o * na + a]] = w * fit.concentrations[[i, k]];
-            }
-            w *= dt;
-        }
-    }
+    let x = super::bootstrap::fit_design(set, params, fit)?;
     // NaN spectra (wavelengths without data) give NaN fitted values there, as they should.
     let mut fitted = x.dot(&fit.spectra.t());
     // the known spectra's part diag(b)·C_k·E_kᵀ, held fixed in the fit
-    for name in &fit.known_species {
-        let spectrum = params
-            .known_spectra
-            .iter()
-            .find(|s| &s.species == name)
-            .ok_or_else(|| HardFitError::Settings(format!("no known spectrum of '{name}' in the settings")))?
-            .on_grid(set.wavelengths_nm())?;
-        let k = fit
-            .species
-            .iter()
-            .position(|s| s == name)
-            .ok_or_else(|| HardFitError::Settings(format!("species '{name}' missing from the fit")))?;
-        for (i, mut row) in fitted.rows_mut().into_iter().enumerate() {
-            row.scaled_add(set.samples()[i].path_cm * fit.concentrations[[i, k]], &spectrum);
-        }
+    if let Some(part) = super::bootstrap::known_part(set, params, fit)? {
+        fitted += &part;
     }
     Ok(fitted)
 }

@@ -354,6 +354,10 @@ pub struct HardFit {
     /// (ε there are feasible, ≥ 0, but may not be optimal); empty otherwise.
     #[serde(default)]
     pub nnls_unconverged_nm: Vec<f64>,
+    /// Whether the fit used absorbance-dependent weights: `rss`, `residual_sd` and `sigma` are
+    /// then weighted, unitless (σ̂ ≈ 1 when the stated noise model is right), not AU.
+    #[serde(default)]
+    pub weighted: bool,
     /// Δχ² = (RSS_other − RSS)/σ² of the solution reached from the best start with the other
     /// ΔH° signs (the mirror side), when such a run was made (≈ 0 when it came back to the
     /// reported solution); an ambiguity is reported in `alternatives` only when that solution is
@@ -428,6 +432,15 @@ impl HardFit {
                 })
                 .collect(),
         )
+    }
+
+    /// The unit of `residual_sd` and `sigma`: AU, or the weighted scale factor.
+    pub fn residual_unit(&self) -> &'static str {
+        if self.weighted {
+            "× stated noise (weighted)"
+        } else {
+            "AU"
+        }
     }
 
     /// Value and standard error of a parameter by species and parameter name.
@@ -1123,9 +1136,6 @@ pub fn residual_matrix(
     fit: &HardFit,
     params: &HardFitParams,
 ) -> Result<Array2<f64>, HardFitError> {
-    if columnwise::requested(params) {
-        return Ok(set.absorbance() - &columnwise::fitted_values(set, params, fit)?);
-    }
     Ok(set.absorbance() - &bootstrap::fitted_values(set, params, fit)?)
 }
 
@@ -1545,6 +1555,7 @@ fn summarise(
         ceiling_violations: Vec::new(),
         alternatives: Vec::new(),
         nnls_unconverged_nm,
+        weighted: !params.weighting.is_uniform(),
         mirror_delta_chi2: None,
     })
 }
