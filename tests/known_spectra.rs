@@ -250,3 +250,55 @@ fn the_fit_command_reads_the_known_spectrum_the_model_names() {
         "{err}"
     );
 }
+
+#[test]
+fn a_batch_redoes_a_set_whose_known_spectrum_file_changed() {
+    let tmp = tempfile::tempdir().unwrap();
+    let set = tmp.path().join("runs/a");
+    std::fs::create_dir_all(&set).unwrap();
+    let species = ["M", "MX", "MX2"];
+    let config = support::write_inputs(&set, TWO_COMPLEXES, &species);
+    let truth = model(TWO_COMPLEXES);
+    let sim = simulate(&truth, &plan(&species)).unwrap();
+    let m = truth_of(&sim, &truth, "M");
+    let spectrum_file = |scale: f64| {
+        let mut text = String::from("wavelength_nm,epsilon\n");
+        for (w, e) in m.wavelengths_nm.iter().zip(&m.absorptivity) {
+            text.push_str(&format!("{w},{}\n", scale * e));
+        }
+        std::fs::write(set.join("m.csv"), text).unwrap();
+    };
+    spectrum_file(1.0);
+    std::fs::write(
+        &config.model,
+        TWO_COMPLEXES.replace(
+            r#"{ name = "M", absorbs = true }"#,
+            r#"{ name = "M", absorbs = true, known_spectrum = "m.csv" }"#,
+        ),
+    )
+    .unwrap();
+    let out = tmp.path().join("results");
+    let batch = || {
+        let (code, err) = run(Command::new(env!("CARGO_BIN_EXE_isosbestic"))
+            .arg("batch")
+            .arg(tmp.path().join("runs"))
+            .arg("--out")
+            .arg(&out)
+            .arg("--quiet"));
+        assert_eq!(code, 0, "{err}");
+        std::fs::read_to_string(out.join("batch_summary.csv")).unwrap()
+    };
+    let first = batch();
+    assert!(first.contains(",ok,"), "first run fits the set: {first}");
+    let second = batch();
+    assert!(
+        second.contains(",skipped,"),
+        "nothing changed, the set is skipped: {second}"
+    );
+    spectrum_file(1.01);
+    let third = batch();
+    assert!(
+        third.contains(",ok,"),
+        "the edited spectrum file redoes the set: {third}"
+    );
+}

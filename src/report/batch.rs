@@ -815,6 +815,11 @@ fn process(set: &DataSet, out_dir: &Path, params: &BatchParams, shared: &Shared)
     {
         inputs.push(checksum(p).map_err(fail)?);
     }
+    // the known spectra the model names are inputs too: an edited one redoes the set
+    let model = read_model(&config.model).map_err(fail)?;
+    for (_, p) in super::fit::model_spectrum_files(&model, &config.model) {
+        inputs.push(checksum(&p).map_err(fail)?);
+    }
     let state_path = out_dir.join(STATE_FILE);
     let earlier = read_json::<SetState>(&state_path, STATE_KIND).ok();
     if params.redo == Redo::Incomplete {

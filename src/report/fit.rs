@@ -113,19 +113,25 @@ pub fn with_model_spectra(
     model_path: &Path,
     inputs: &mut Vec<InputFile>,
 ) -> Result<HardFitParams> {
-    let dir = model_path.parent().unwrap_or_else(|| Path::new(""));
     let mut out = params.clone();
-    for sp in model.species() {
-        if let Some(file) = &sp.known_spectrum
-            && !params.known_spectra.iter().any(|k| k.species == sp.name)
-        {
-            let path = dir.join(file);
+    for (name, path) in model_spectrum_files(model, model_path) {
+        if !params.known_spectra.iter().any(|k| k.species == name) {
             inputs.push(checksum(&path)?);
-            out.known_spectra
-                .push(hard::FixedSpectrum::read(&path, &sp.name)?);
+            out.known_spectra.push(hard::FixedSpectrum::read(&path, &name)?);
         }
     }
     Ok(out)
+}
+
+/// The known-spectrum files a model names (`known_spectrum = "…"`), as (species, path) with
+/// relative paths resolved against the model file's folder.
+pub fn model_spectrum_files(model: &ValidModel, model_path: &Path) -> Vec<(String, PathBuf)> {
+    let dir = model_path.parent().unwrap_or_else(|| Path::new(""));
+    model
+        .species()
+        .iter()
+        .filter_map(|s| s.known_spectrum.as_ref().map(|f| (s.name.clone(), dir.join(f))))
+        .collect()
 }
 
 /// A finding about a fit that a user should read (not an error: the fit ran).
