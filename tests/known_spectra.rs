@@ -221,6 +221,25 @@ fn the_fit_command_reads_the_known_spectrum_the_model_names() {
     };
     let (code, err) = fit("out");
     assert_eq!(code, 0, "{err}");
+    let (code, stdout) = {
+        let out = Command::new(env!("CARGO_BIN_EXE_isosbestic"))
+            .args(["fit", "--spectra"])
+            .arg(&config.data.paths()[0])
+            .arg("--samples")
+            .arg(&config.data.paths()[1])
+            .arg("--model")
+            .arg(&config.model)
+            .arg("--out")
+            .arg(dir.path().join("printed"))
+            .output()
+            .unwrap();
+        (
+            out.status.code(),
+            String::from_utf8_lossy(&out.stdout).into_owned(),
+        )
+    };
+    assert_eq!(code, Some(0));
+    assert!(stdout.contains("spectra held fixed (known): M"), "{stdout}");
     let report: serde_json::Value =
         serde_json::from_str(&std::fs::read_to_string(dir.path().join("out/report.json")).unwrap()).unwrap();
     assert_eq!(report["data"]["fit"]["known_species"], serde_json::json!(["M"]));

@@ -960,6 +960,9 @@ impl fmt::Display for FitReport {
             fit.residual_unit(),
             fit.degrees_of_freedom
         )?;
+        if !fit.known_species.is_empty() {
+            writeln!(f, "spectra held fixed (known): {}", fit.known_species.join(", "))?;
+        }
         writeln!(f)?;
         writeln!(
             f,
