@@ -854,56 +854,22 @@ pub(super) fn fitted_values(
 
 #[cfg(test)]
 mod tests {
-    use super::super::tests::two_complex_model;
+    use super::super::tests::{small_plan, two_complex_model};
     use super::super::{HardFitParams, build_problem, free_parameters};
     use super::*;
     use crate::data::SpectraSet;
-    use crate::simulate::{Band, Noise, PureSpectrum, SeriesPlan, SimulationPlan, simulate};
+    use crate::simulate::{Noise, SimulationPlan, simulate};
     use crate::speciation::ValidModel;
 
     /// Two series, four temperatures, 400–700 nm. The free metal's band (420 nm) has died out
     /// beyond ≈ 520 nm, so with noise its unconstrained ε goes negative there.
     fn plan(noise: Noise) -> SimulationPlan {
-        let band = |c: f64, w: f64, h: f64| Band {
-            centre_nm: c,
-            width_nm: w,
-            height: h,
-            shift_nm_per_k: 0.0,
-        };
-        SimulationPlan {
-            seed: 7,
-            first_nm: 400.0,
-            last_nm: 700.0,
-            step_nm: 10.0,
-            temperatures_c: vec![10.0, 30.0, 50.0, 70.0],
-            path_cm: 1.0,
-            preparation_temperature_c: 25.0,
-            thermal_expansion: false,
-            noise,
-            offset_sd_au: 0.0,
-            slope_sd_au_per_100nm: 0.0,
-            series: [0.3, 3.0]
-                .iter()
-                .map(|&x| SeriesPlan {
-                    label: format!("X{x}"),
-                    totals_m: [("M".into(), 0.02), ("X".into(), x)].into(),
-                })
-                .collect(),
-            spectra: vec![
-                PureSpectrum {
-                    species: "M".into(),
-                    bands: vec![band(420.0, 20.0, 6.0)],
-                },
-                PureSpectrum {
-                    species: "MX".into(),
-                    bands: vec![band(500.0, 35.0, 18.0)],
-                },
-                PureSpectrum {
-                    species: "MX2".into(),
-                    bands: vec![band(600.0, 40.0, 40.0)],
-                },
-            ],
-        }
+        let mut plan = small_plan();
+        plan.seed = 7;
+        plan.noise = noise;
+        // a narrower metal band than the shared plan's, so it dies out well inside the range
+        plan.spectra[0].bands[0].width_nm = 20.0;
+        plan
     }
 
     fn model() -> ValidModel {

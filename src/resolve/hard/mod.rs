@@ -1456,9 +1456,79 @@ fn summarise(
             standard,
         });
     }
+    // Spectra and their standard errors: from the per-wavelength solves on the columnwise path
+    // (σ√diag((X_PᵀW_jX_P)⁻¹) on the passive set, 0 where clipped), else from the projection.
+    let mut nnls_unconverged_nm = Vec::new();
+    let (spectra, spectra_standard_errors) = match columns {
+        Some((sol, _)) => {
+            nnls_unconverged_nm = sol
+                .nnls_unconverged
+                .iter()
+                .map(|&j| set.wavelengths_nm()[j])
+                .collect();
+            (sol.spectra, sol.se_factors.mapv(|f| sigma * f))
+        }
+        None => projected_spectra(set, problem, &proj, c.view(), sigma),
+    };
+    Ok(HardFit {
+        parameters,
+        covariance: cov,
+        correlation,
+        thermodynamics,
+        absorbing_species: problem
+            .absorbing
+            .iter()
+            .map(|&k| model.species()[k].name.clone())
+            .collect(),
+        known_species: problem
+            .known
+            .iter()
+            .map(|&k| model.species()[k].name.clone())
+            .collect(),
+        spectra,
+        spectra_standard_errors,
+        concentrations: c,
+        species: model.species().iter().map(|s| s.name.clone()).collect(),
+        rss,
+        degrees_of_freedom: dof,
+        residual_sd,
+        sigma,
+        design_singular_values: proj.singular_values.to_vec(),
+        residual_singular_values,
+        n_data,
+        n_parameters_total: free.len() + n_linear,
+        design_rank: {
+            // determined directions: singular values above 1e-9 of the largest
+            let smax = proj.singular_values.iter().fold(0.0f64, |m, v| m.max(*v));
+            proj.singular_values.iter().filter(|&&v| v > 1e-9 * smax).count()
+        },
+        iterations: out.iterations,
+        termination: out.termination,
+        starts_tried,
+        at_bounds: Vec::new(),
+        ceiling_violations: Vec::new(),
+        alternatives: Vec::new(),
+        nnls_unconverged_nm,
+        weighted: !params.weighting.is_uniform(),
+        mirror_delta_chi2: None,
+    })
+}
+
+/// Spectra S = (X⁺ (D − K))ᵀ from the full data less the known spectra's part
+/// K = diag(b)·C_k·E_kᵀ, with standard errors σ √diag((XᵀX)⁻¹); at a wavelength the fit left out
+/// (a masked point there) the spectrum is estimated from the unmasked samples only, with its own
+/// σ√diag((X_uᵀX_u)⁻¹), NaN when they cannot determine it.
+fn projected_spectra(
+    set: &SpectraSet,
+    problem: &VarproProblem<'_>,
+    proj: &Projection,
+    c: ndarray::ArrayView2<f64>,
+    sigma: f64,
+) -> (Array2<f64>, Array2<f64>) {
+    let ns = set.n_samples();
     // Spectra from the full data less the known spectra's part: S = (X⁺ (D − K))ᵀ,
     // K = diag(b)·C_k·E_kᵀ; standard errors σ √diag((XᵀX)⁻¹).
-    let less_known = problem.less_known(set.absorbance(), c.view());
+    let less_known = problem.less_known(set.absorbance(), c);
     let d = less_known.as_ref();
     let mut spectra = proj.pinv.dot(d).t().to_owned();
     // At a wavelength the fit left out (a masked point there), the spectrum is estimated from
@@ -1505,59 +1575,7 @@ fn summarise(
     for (j, se) in excluded_se {
         spectra_standard_errors.row_mut(j).assign(&Array1::from(se));
     }
-    let mut nnls_unconverged_nm = Vec::new();
-    if let Some((sol, _)) = columns {
-        // per-wavelength solves: σ√diag((X_PᵀW_jX_P)⁻¹) on the passive set, 0 where clipped
-        spectra_standard_errors = sol.se_factors.mapv(|f| sigma * f);
-        spectra = sol.spectra;
-        nnls_unconverged_nm = sol
-            .nnls_unconverged
-            .iter()
-            .map(|&j| set.wavelengths_nm()[j])
-            .collect();
-    }
-    Ok(HardFit {
-        parameters,
-        covariance: cov,
-        correlation,
-        thermodynamics,
-        absorbing_species: problem
-            .absorbing
-            .iter()
-            .map(|&k| model.species()[k].name.clone())
-            .collect(),
-        known_species: problem
-            .known
-            .iter()
-            .map(|&k| model.species()[k].name.clone())
-            .collect(),
-        spectra,
-        spectra_standard_errors,
-        concentrations: c,
-        species: model.species().iter().map(|s| s.name.clone()).collect(),
-        rss,
-        degrees_of_freedom: dof,
-        residual_sd,
-        sigma,
-        design_singular_values: proj.singular_values.to_vec(),
-        residual_singular_values,
-        n_data,
-        n_parameters_total: free.len() + n_linear,
-        design_rank: {
-            // determined directions: singular values above 1e-9 of the largest
-            let smax = proj.singular_values.iter().fold(0.0f64, |m, v| m.max(*v));
-            proj.singular_values.iter().filter(|&&v| v > 1e-9 * smax).count()
-        },
-        iterations: out.iterations,
-        termination: out.termination,
-        starts_tried,
-        at_bounds: Vec::new(),
-        ceiling_violations: Vec::new(),
-        alternatives: Vec::new(),
-        nnls_unconverged_nm,
-        weighted: !params.weighting.is_uniform(),
-        mirror_delta_chi2: None,
-    })
+    (spectra, spectra_standard_errors)
 }
 
 /// The totals at the measurement temperature (samples × model components, mol/L) and the
@@ -1592,7 +1610,7 @@ mod tests {
         crate::testing::metal_ligand_model("M", "X", &[(1, lb1, dh1), (2, lb2, dh2)], None)
     }
 
-    fn small_plan() -> SimulationPlan {
+    pub(crate) fn small_plan() -> SimulationPlan {
         let band = |c: f64, w: f64, h: f64| Band {
             centre_nm: c,
             width_nm: w,
