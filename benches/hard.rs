@@ -3,6 +3,9 @@
 //! (nsp = absorbing species). Data (noise 1e-3 AU, fixed seed) are simulated outside the timed
 //! closure.
 //!
+//! `ISOSBESTIC_REPEAT=<folder>:<n>` does the same on one of the peer's data folders (subtract
+//! the run with n = 0, which only loads the files).
+//!
 //! Side-by-side mode for `scripts/compare_peer.py`: with `ISOSBESTIC_PEER_DATA=DIR` the bench
 //! also loads every data set folder in DIR (spectra.csv + samples.csv with `Mt_M`, `Lt_M`),
 //! times the same fit on it and prints `PEER_COMPARE <folder> <median seconds> <ΔH° kJ/mol> <its standard error>` lines.
@@ -172,6 +175,15 @@ fn main() {
     if let Ok(spec) = std::env::var("ISOSBESTIC_REPEAT") {
         // "<wavelengths>x<temperatures>x<fits>": fit the simulated set that many times (for
         // profilers and CPU-time counters, which are steadier than wall time on a busy machine).
+        // "<folder>:<fits>": the same on one of the peer's data folders
+        if let Some((dir, count)) = spec.rsplit_once(':') {
+            let set = load_peer(Path::new(dir));
+            let start = ml4_model("Mt", "Lt", 3.0, 0.0);
+            for _ in 0..count.parse().unwrap_or(0) {
+                black_box(fit_once(&set, &start));
+            }
+            return;
+        }
         let n: Vec<usize> = spec.split('x').filter_map(|v| v.parse().ok()).collect();
         if let [n_wl, n_t, count] = n[..] {
             let set = simulated(n_wl, n_t);

@@ -32,11 +32,11 @@
 //! Replicate k draws from a ChaCha8 stream seeded with `seed` on stream k, so the result for a
 //! seed is the same whatever the number of threads and the order in which replicates finish.
 
+use super::small_svd::SmallSvd;
 use super::{Baseline, HardFit, HardFitError, HardFitParams, fit};
 use crate::data::SpectraSet;
 use crate::speciation::{Law, SpeciesRole, ValidModel};
 use ndarray::Array2;
-use ndarray_linalg::SVD;
 use rand::{Rng, SeedableRng};
 use rand_chacha::ChaCha8Rng;
 use rayon::prelude::*;
@@ -155,14 +155,11 @@ pub fn fitted_values(
     // D̂ = P_X·D + Q_X·D·P_W: the projection onto the range of X (with the fit's rank rule),
     // which is X·Ŝᵀ without the amplification of X⁺ when X is nearly rank-deficient, plus
     // the baseline terms (the projection of the rest onto span{1, λ} or {1}).
-    let (u, sv, _) = x
-        .svd(true, false)
-        .map_err(|e| HardFitError::Solver(format!("SVD of the design failed: {e}")))?;
-    let u = u.ok_or_else(|| HardFitError::Solver("SVD of the design returned no vectors".into()))?;
-    let smax = sv.iter().fold(0.0f64, |a, v| a.max(*v));
-    let tol = smax * (ns.max(m) as f64) * f64::EPSILON;
-    let rank = sv.iter().filter(|&&v| v > tol).count();
-    let ur = u.slice(ndarray::s![.., ..rank]);
+    // (the same one-sided Jacobi SVD and rank rule as the fit's projection)
+    let svd = SmallSvd::of_transposed(x.t().iter().copied().collect(), m, ns);
+    let ur = Array2::from_shape_vec((svd.rank, ns), svd.ut)
+        .map_err(|e| HardFitError::Solver(format!("SVD of the design: {e}")))?
+        .reversed_axes();
     let mut fitted = ur.dot(&ur.t().dot(d));
     // The baselines are fitted where the global fit was (wavelengths without a masked point)
     // and evaluated at every wavelength.

@@ -71,6 +71,7 @@
 //! data leave them poorly determined, and compare θ with the free fit.
 
 use super::problem::VarproProblem;
+use super::small_svd::SmallSvd;
 use super::{Baseline, HardFitError, HardFitParams, SpectraTemperature};
 use crate::resolve::linear::{NnlsParams, NnlsStatus, nnls_normal};
 use crate::resolve::lm::{GaussNewtonProblem, NormalEquations};
@@ -193,113 +194,6 @@ pub(super) fn check_settings(
         ));
     }
     Ok(())
-}
-
-/// Thin SVD of a small, tall matrix by one-sided Jacobi rotations (Hestenes, J. Soc. Ind. Appl.
-/// Math. 6 (1958) 51; Demmel & Veselić, SIAM J. Matrix Anal. Appl. 13 (1992) 1204: accurate to
-/// working precision): the range basis and the pseudo-inverse with the rank rule of the reduced
-/// path. For the few columns of a design matrix this is many times cheaper than a LAPACK call
-/// per wavelength. Plain row-major slices: every column of A is a contiguous row of Aᵀ.
-struct SmallSvd {
-    /// Rows of the matrix.
-    n: usize,
-    /// Numerical rank.
-    rank: usize,
-    /// Uᵀ, rank × n: an orthonormal basis of the range, one basis vector per row.
-    ut: Vec<f64>,
-    /// The pseudo-inverse A⁺, k × n.
-    pinv: Vec<f64>,
-}
-
-impl SmallSvd {
-    /// From Aᵀ (k × n, row-major), consumed.
-    fn of_transposed(mut at: Vec<f64>, k: usize, n: usize) -> Self {
-        let mut v = vec![0.0; k * k]; // Vᵀ, row-major: row p is column p of V
-        for p in 0..k {
-            v[p * k + p] = 1.0;
-        }
-        let dot = |a: &[f64], b: &[f64]| a.iter().zip(b).map(|(x, y)| x * y).sum::<f64>();
-        let rotate = |m: &mut [f64], len: usize, p: usize, q: usize, c: f64, s: f64| {
-            let (head, tail) = m.split_at_mut(q * len);
-            let (rp, rq) = (&mut head[p * len..(p + 1) * len], &mut tail[..len]);
-            for (a, b) in rp.iter_mut().zip(rq.iter_mut()) {
-                let (x, y) = (*a, *b);
-                *a = c * x - s * y;
-                *b = s * x + c * y;
-            }
-        };
-        for _sweep in 0..60 {
-            let mut rotated = false;
-            for p in 0..k {
-                for q in p + 1..k {
-                    let (rp, rq) = (&at[p * n..(p + 1) * n], &at[q * n..(q + 1) * n]);
-                    let (alpha, beta, gamma) = (dot(rp, rp), dot(rq, rq), dot(rp, rq));
-                    if gamma == 0.0 || gamma.abs() <= f64::EPSILON * (alpha * beta).sqrt() {
-                        continue;
-                    }
-                    rotated = true;
-                    let zeta = (beta - alpha) / (2.0 * gamma);
-                    let t = zeta.signum() / (zeta.abs() + (1.0 + zeta * zeta).sqrt());
-                    let c = 1.0 / (1.0 + t * t).sqrt();
-                    let s = c * t;
-                    rotate(&mut at, n, p, q, c, s);
-                    rotate(&mut v, k, p, q, c, s);
-                }
-            }
-            if !rotated {
-                break;
-            }
-        }
-        // A·V = U·Σ: the rotated columns are σ_a·u_a
-        let sigma: Vec<f64> = (0..k)
-            .map(|a| {
-                let r = &at[a * n..(a + 1) * n];
-                dot(r, r).sqrt()
-            })
-            .collect();
-        let smax = sigma.iter().fold(0.0f64, |m, s| m.max(*s));
-        let tol = smax * (n.max(k) as f64) * f64::EPSILON;
-        let kept: Vec<usize> = (0..k).filter(|&a| sigma[a] > tol).collect();
-        let mut ut = vec![0.0; kept.len() * n];
-        let mut pinv = vec![0.0; k * n];
-        for (c, &a) in kept.iter().enumerate() {
-            let row = &mut ut[c * n..(c + 1) * n];
-            for (u, x) in row.iter_mut().zip(&at[a * n..(a + 1) * n]) {
-                *u = x / sigma[a];
-            }
-            // A⁺ = V Σ⁻¹ Uᵀ: row b gains V[b, a]/σ_a · u_a, V[b, a] = Vᵀ[a, b]
-            for b in 0..k {
-                let f = v[a * k + b] / sigma[a];
-                for (pi, u) in pinv[b * n..(b + 1) * n].iter_mut().zip(row.iter()) {
-                    *pi += f * u;
-                }
-            }
-        }
-        Self {
-            n,
-            rank: kept.len(),
-            ut,
-            pinv,
-        }
-    }
-
-    /// Uᵀ·z (rank).
-    fn ut_dot(&self, z: &[f64]) -> Vec<f64> {
-        self.ut
-            .chunks_exact(self.n)
-            .map(|u| u.iter().zip(z).map(|(a, b)| a * b).sum())
-            .collect()
-    }
-
-    /// z − U·(Uᵀz), in place: the part of z outside the range.
-    fn project_out(&self, z: &mut [f64]) {
-        let coef = self.ut_dot(z);
-        for (u, c) in self.ut.chunks_exact(self.n).zip(coef) {
-            for (zi, ui) in z.iter_mut().zip(u) {
-                *zi -= c * ui;
-            }
-        }
-    }
 }
 
 /// Wavelengths per parallel work item.
@@ -1087,46 +981,6 @@ mod tests {
             );
         }
         assert!(clipped > 0, "the check must include clipped ε");
-    }
-
-    #[test]
-    fn the_jacobi_svd_gives_lapacks_projector_and_pseudo_inverse() {
-        use rand::Rng;
-        let model = model();
-        let sim = simulate(&model, &plan(Noise::None)).unwrap();
-        let free = free_parameters(&model);
-        let (base, _, _) = build_problem(&sim.set, &model, &free, &HardFitParams::default()).unwrap();
-        let mut g = crate::testing::rng(3);
-        for (n, k, rank) in [
-            (8usize, 3usize, 3usize),
-            (30, 6, 6),
-            (12, 5, 2),
-            (5, 1, 1),
-            (6, 3, 0),
-        ] {
-            // A = B·C with B n × rank and C rank × k: rank `rank`, scaled columns
-            let b = Array2::from_shape_fn((n, rank), |_| g.random_range(-1.0..1.0));
-            let c = Array2::from_shape_fn((rank, k), |(_, j)| {
-                g.random_range(-1.0..1.0) * 10f64.powi(j as i32)
-            });
-            let a = b.dot(&c);
-            let svd = SmallSvd::of_transposed(a.t().iter().copied().collect(), k, n);
-            let ours_u = Array2::from_shape_vec((svd.rank, n), svd.ut.clone())
-                .unwrap()
-                .reversed_axes();
-            let ours_pinv = Array2::from_shape_vec((k, n), svd.pinv.clone()).unwrap();
-            // LAPACK's divide-and-conquer SVD (the reduced path's `project`) is the reference
-            let lapack = base.project(a.clone()).unwrap();
-            assert_eq!(svd.rank, lapack.u.ncols(), "rank of {n} × {k}");
-            let p_ours = ours_u.dot(&ours_u.t());
-            let p_ref = lapack.u.dot(&lapack.u.t());
-            assert!(max_abs((&p_ours - &p_ref).iter()) < 1e-10, "projector {n} × {k}");
-            let scale = max_abs(lapack.pinv.iter()).max(1.0);
-            assert!(
-                max_abs((&ours_pinv - &lapack.pinv).iter()) < 1e-10 * scale,
-                "pseudo-inverse {n} × {k}"
-            );
-        }
     }
 
     #[test]

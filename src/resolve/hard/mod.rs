@@ -73,6 +73,7 @@ pub mod bootstrap;
 pub mod columnwise;
 mod known;
 mod problem;
+mod small_svd;
 
 pub use columnwise::{SpectraSign, Weighting};
 pub use known::FixedSpectrum;

@@ -1,6 +1,7 @@
 //! The variable-projection problem: residuals and Jacobian of the global fit as functions of the
 //! thermodynamic parameters θ only (argmin [`Operator`] and [`Jacobian`]).
 
+use super::small_svd::SmallSvd;
 use super::{FreeParameter, SpectraTemperature};
 use crate::resolve::lm::{GaussNewtonProblem, NormalEquations};
 use crate::speciation::{
@@ -8,7 +9,6 @@ use crate::speciation::{
 };
 use argmin::core::{Error as ArgminError, Jacobian, Operator};
 use ndarray::{Array1, Array2, ArrayView2};
-use ndarray_linalg::{JobSvd, SVDDC};
 use std::borrow::Cow;
 use std::sync::Mutex;
 
@@ -187,33 +187,27 @@ impl<'a> VarproProblem<'a> {
         x
     }
 
-    /// Thin SVD of X with a numerical rank and X⁺.
+    /// Thin SVD of X with a numerical rank and X⁺ (one-sided Jacobi: X has only a few columns,
+    /// where a LAPACK call costs more in set-up than in arithmetic).
     pub fn project(&self, x: Array2<f64>) -> Result<Projection, ArgminError> {
-        let (u, s, vt) = x
-            .svddc(JobSvd::Some)
-            .map_err(|e| -> ArgminError { argmin::argmin_error!(InvalidParameter, e.to_string()) })?;
-        let (Some(u), Some(vt)) = (u, vt) else {
-            return Err(argmin::argmin_error!(PotentialBug, "SVD returned no vectors"));
-        };
-        let smax = s.iter().fold(0.0f64, |m, v| m.max(*v));
-        let tol = smax * (x.nrows().max(x.ncols()) as f64) * f64::EPSILON;
-        let rank = s.iter().filter(|&&v| v > tol).count();
-        let u = u.slice(ndarray::s![.., ..rank]).to_owned();
-        let mut pinv = Array2::zeros((x.ncols(), x.nrows()));
-        for k in 0..rank {
-            let vk = vt.row(k);
-            let uk = u.column(k);
-            for a in 0..x.ncols() {
-                for i in 0..x.nrows() {
-                    pinv[[a, i]] += vk[a] * uk[i] / s[k];
-                }
-            }
+        let (n, k) = x.dim();
+        if x.iter().any(|v| !v.is_finite()) {
+            return Err(argmin::argmin_error!(
+                InvalidParameter,
+                "design matrix is not finite"
+            ));
         }
+        let svd = SmallSvd::of_transposed(x.t().iter().copied().collect(), k, n);
+        let u = Array2::from_shape_vec((svd.rank, n), svd.ut)
+            .map_err(|e| -> ArgminError { argmin::argmin_error!(PotentialBug, e.to_string()) })?
+            .reversed_axes();
+        let pinv = Array2::from_shape_vec((k, n), svd.pinv)
+            .map_err(|e| -> ArgminError { argmin::argmin_error!(PotentialBug, e.to_string()) })?;
         Ok(Projection {
             x,
             u,
             pinv,
-            singular_values: s,
+            singular_values: Array1::from(svd.sigma),
         })
     }
 
