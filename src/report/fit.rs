@@ -165,7 +165,8 @@ pub enum Diagnostic {
         /// Columns (absorbing species × spectra temperature terms).
         columns: usize,
     },
-    /// A distinct second solution fits almost as well (e.g. metal and complex swapped).
+    /// A distinct second solution fits almost as well (e.g. metal and complex swapped), or
+    /// fits better but breaks a declared ε ceiling.
     Ambiguous {
         /// Its parameter values.
         parameters: Vec<f64>,
@@ -237,11 +238,23 @@ impl fmt::Display for Diagnostic {
                 delta_chi2,
                 chosen_by_prior,
             } => {
-                write!(
-                    f,
-                    "a second solution {parameters:?} fits almost as well (Δχ² = {delta_chi2:.3}); "
-                )?;
-                if *chosen_by_prior {
+                if *delta_chi2 < -hard::MIRROR_DELTA_CHI2 {
+                    write!(
+                        f,
+                        "a second solution {parameters:?} fits better (Δχ² = {delta_chi2:.3}); "
+                    )?;
+                } else {
+                    write!(
+                        f,
+                        "a second solution {parameters:?} fits almost as well (Δχ² = {delta_chi2:.3}); "
+                    )?;
+                }
+                if *chosen_by_prior && *delta_chi2 < -hard::MIRROR_DELTA_CHI2 {
+                    write!(
+                        f,
+                        "the reported one was chosen because the other breaks a declared ε ceiling — the data alone clearly prefer the other: check the ceiling and the model"
+                    )
+                } else if *chosen_by_prior {
                     write!(
                         f,
                         "the reported one was chosen because the other breaks a declared ε ceiling"

@@ -349,7 +349,8 @@ pub struct HardFit {
     /// Species whose fitted spectrum breaks its declared ε ceiling (`max_absorptivity`).
     pub ceiling_violations: Vec<String>,
     /// Distinct solutions found from the other side (ΔH° signs flipped) that fit almost as well
-    /// (Δχ² < [`MIRROR_DELTA_CHI2`]): the data alone cannot choose between them.
+    /// (|Δχ²| < [`MIRROR_DELTA_CHI2`]: the data alone cannot choose between them), or that fit
+    /// better but break a declared ε ceiling (the ceiling decides whatever the Δχ²).
     pub alternatives: Vec<AlternativeSolution>,
     /// Wavelengths (nm) at which the non-negative spectra solve stopped at its iteration limit
     /// (ε there are feasible, ≥ 0, but may not be optimal); empty otherwise.
@@ -361,8 +362,9 @@ pub struct HardFit {
     pub weighted: bool,
     /// Δχ² = (RSS_other − RSS)/σ² of the solution reached from the best start with the other
     /// ΔH° signs (the mirror side), when such a run was made (≈ 0 when it came back to the
-    /// reported solution); an ambiguity is reported in `alternatives` only when that solution is
-    /// distinct and below [`MIRROR_DELTA_CHI2`].
+    /// reported solution); that solution is listed in `alternatives` only when it is distinct
+    /// and within [`MIRROR_DELTA_CHI2`], or fits better but lost to a declared ε ceiling. Of two
+    /// distinct solutions the fit keeps the one that breaks no ceiling, else the lower χ².
     pub mirror_delta_chi2: Option<f64>,
 }
 
@@ -452,7 +454,8 @@ impl HardFit {
     }
 }
 
-/// A second, distinct solution that fits almost as well as the reported one.
+/// A second, distinct solution that fits almost as well as the reported one (or better, but
+/// breaks a declared ε ceiling).
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
 pub struct AlternativeSolution {
     /// Its parameter values (order of [`HardFit::parameters`]).
@@ -1029,6 +1032,8 @@ pub fn fit_with_progress(
             .find(|x| signs(x) != best_signs)
             .inspect(|_| progress(FitProgress::SolverRun { run: runs + 1 }))
             .and_then(|x| lm::minimise_normal_equations(&problem, x.clone(), solver.clone()).ok())
+            // a run that drove a species out of the model is a plateau, not a mirror solution
+            .filter(|o| !has_vanished_species(problem.varpro(), &o.param))
     };
     progress(FitProgress::Summarising);
     let finish = |o: lm::LmOutcome| -> Result<HardFit, HardFitError> {
@@ -1054,30 +1059,70 @@ pub fn fit_with_progress(
         });
         let delta_chi2 = (mirror.rss - fit.rss) / (fit.sigma * fit.sigma);
         fit.mirror_delta_chi2 = Some(if distinct { delta_chi2 } else { 0.0 });
-        if distinct && delta_chi2.abs() < MIRROR_DELTA_CHI2 {
-            // Prior knowledge decides: a solution that breaks a declared ε ceiling loses.
-            let (keep, other, chosen_by_prior) =
-                if !fit.ceiling_violations.is_empty() && mirror.ceiling_violations.is_empty() {
-                    (mirror, fit, true)
-                } else {
-                    (fit, mirror, false)
-                };
-            let mut keep = keep;
-            let delta_chi2 = (other.rss - keep.rss) / (keep.sigma * keep.sigma);
+        let breaks = |f: &HardFit| !f.ceiling_violations.is_empty();
+        let choice = choose_side(distinct, delta_chi2, breaks(&fit), breaks(&mirror));
+        let (mut keep, other) = if choice.take_mirror {
+            (mirror, fit)
+        } else {
+            (fit, mirror)
+        };
+        let delta_chi2 = (other.rss - keep.rss) / (keep.sigma * keep.sigma);
+        if distinct {
             keep.mirror_delta_chi2 = Some(delta_chi2);
+        }
+        if choice.report_other {
             keep.alternatives.push(AlternativeSolution {
                 parameters: other.parameters.iter().map(|p| p.value).collect(),
                 rss: other.rss,
                 delta_chi2,
                 ceiling_violations: other.ceiling_violations.clone(),
-                chosen_by_prior,
+                chosen_by_prior: choice.chosen_by_prior,
             });
-            fit = keep;
         }
+        fit = keep;
     }
     let theta: Array1<f64> = fit.parameters.iter().map(|p| p.value).collect();
     fit.residual_singular_values = residual_singular_values(&problem, &theta)?;
     Ok(fit)
+}
+
+/// Which of two distinct solutions a fit keeps ([`choose_side`]).
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+struct SideChoice {
+    /// Keep the mirror-side run's solution.
+    take_mirror: bool,
+    /// A declared ε ceiling made the choice (exactly one of the two breaks one).
+    chosen_by_prior: bool,
+    /// List the other as an alternative: the data cannot tell them apart (|Δχ²| below
+    /// [`MIRROR_DELTA_CHI2`]), or the prior kept the one that fits worse.
+    report_other: bool,
+}
+
+/// Chooses between the solution and the mirror-side solution, `delta_chi2` = (RSS_mirror −
+/// RSS_fit)/σ². Prior knowledge decides first: a solution that breaks a declared ε ceiling
+/// loses to one that does not, whatever the Δχ² (the ceiling is a constraint, not a
+/// preference); otherwise the lower χ² wins. Two solutions that are not distinct are one.
+fn choose_side(distinct: bool, delta_chi2: f64, fit_breaks: bool, mirror_breaks: bool) -> SideChoice {
+    if !distinct {
+        return SideChoice {
+            take_mirror: false,
+            chosen_by_prior: false,
+            report_other: false,
+        };
+    }
+    let chosen_by_prior = fit_breaks != mirror_breaks;
+    let take_mirror = if chosen_by_prior {
+        fit_breaks
+    } else {
+        delta_chi2 < 0.0
+    };
+    // Δχ² of the other against the kept one
+    let other_minus_kept = if take_mirror { -delta_chi2 } else { delta_chi2 };
+    SideChoice {
+        take_mirror,
+        chosen_by_prior,
+        report_other: other_minus_kept.abs() < MIRROR_DELTA_CHI2 || other_minus_kept < 0.0,
+    }
 }
 
 /// Whether a fitted-spectrum species has a negligible concentration in every sample at θ
@@ -1606,6 +1651,41 @@ mod tests {
     use crate::simulate::{Band, Noise, PureSpectrum, SeriesPlan, SimulationPlan, simulate};
     use argmin::core::{Jacobian, Operator};
     use problem::sum_sq;
+
+    /// The rule for the mirror-side solution (the issue's: report both with their Δχ² and let
+    /// prior knowledge decide), case by case: (distinct, Δχ² = (RSS_mirror − RSS_fit)/σ², fit
+    /// breaks a ceiling, mirror breaks one) → (take mirror, chosen by prior, report the other).
+    #[test]
+    fn a_declared_ceiling_decides_before_the_chi_square_and_a_better_mirror_wins_otherwise() {
+        let cases = [
+            // the same solution twice
+            ((false, -40.0, true, false), (false, false, false)),
+            // no prior: the lower χ² wins; listed when the data cannot tell them apart
+            ((true, 3.0, false, false), (false, false, true)),
+            ((true, 40.0, false, false), (false, false, false)),
+            ((true, -3.0, false, false), (true, false, true)),
+            // a mirror that fits clearly better is taken (it was once ignored beyond Δχ² 25)
+            ((true, -40.0, false, false), (true, false, false)),
+            ((true, -40.0, true, true), (true, false, false)),
+            // the ceiling decides whatever the Δχ²; the worse-fitting choice lists the other
+            ((true, 3.0, true, false), (true, true, true)),
+            ((true, 29.0, true, false), (true, true, true)),
+            ((true, -29.0, false, true), (false, true, true)),
+            ((true, 40.0, false, true), (false, true, false)),
+        ];
+        for ((distinct, delta, fit_breaks, mirror_breaks), (take, prior, report)) in cases {
+            let expected = SideChoice {
+                take_mirror: take,
+                chosen_by_prior: prior,
+                report_other: report,
+            };
+            assert_eq!(
+                choose_side(distinct, delta, fit_breaks, mirror_breaks),
+                expected,
+                "distinct {distinct}, Δχ² {delta}, fit breaks {fit_breaks}, mirror breaks {mirror_breaks}"
+            );
+        }
+    }
 
     pub(crate) fn two_complex_model(lb1: f64, dh1: f64, lb2: f64, dh2: f64) -> ValidModel {
         crate::testing::metal_ligand_model("M", "X", &[(1, lb1, dh1), (2, lb2, dh2)], None)
