@@ -166,7 +166,7 @@ impl Default for LmParams {
             cost_tolerance: 1e-12,
             step_tolerance: 1e-10,
             gradient_tolerance: 1e-12,
-            initial_damping: 1e-3,
+            initial_damping: 1e-1,
             lower: Vec::new(),
             upper: Vec::new(),
         }

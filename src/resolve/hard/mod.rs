@@ -909,7 +909,9 @@ fn build_problem<'a>(
         known: known.species,
         known_reduced,
         known_values: known.values,
-        batch: Mutex::new(SpeciationBatch::new(model, ns, Derivatives::Skip)),
+        batch: Mutex::new(SpeciationBatch::new(model, ns, Derivatives::LogBeta)),
+        recent: Mutex::new(problem::SpeciationCache::default()),
+        derivatives_with_cost: true,
         medium,
     };
     Ok((problem, n_linear, nw))

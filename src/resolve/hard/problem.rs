@@ -43,6 +43,41 @@ pub(crate) struct VarproProblem<'a> {
     pub batch: Mutex<SpeciationBatch>,
     /// Activity corrections and concentration scale of the speciation (ideal by default).
     pub medium: Medium,
+    /// The last few speciations ([`SpeciationCache`]).
+    pub recent: Mutex<SpeciationCache>,
+    /// Whether [`GaussNewtonProblem::cost`] also computes ∂C/∂θ: the solver asks for the normal
+    /// equations at every point whose cost it accepts, which then reuse that speciation (false
+    /// where only costs are wanted, e.g. when ranking starts).
+    pub derivatives_with_cost: bool,
+}
+
+/// Concentrations (and ∂C/∂θ when computed) at the last few θ, newest first: the solver's
+/// cost and normal equations at an accepted point, and the summary of a finished run, ask for
+/// the same θ again (the same bits: only exact repeats hit).
+#[derive(Debug, Default)]
+pub struct SpeciationCache {
+    entries: Vec<(Array1<f64>, Array2<f64>, Vec<Array2<f64>>)>,
+}
+
+impl SpeciationCache {
+    /// Entries kept.
+    const CAPACITY: usize = 3;
+
+    fn get(&self, theta: &Array1<f64>, derivatives: bool) -> Option<(Array2<f64>, Vec<Array2<f64>>)> {
+        self.entries
+            .iter()
+            .find(|(t, _, dc)| {
+                t.len() == theta.len()
+                    && t.iter().zip(theta).all(|(a, b)| a.to_bits() == b.to_bits())
+                    && (!derivatives || !dc.is_empty() || t.is_empty())
+            })
+            .map(|(_, c, dc)| (c.clone(), if derivatives { dc.clone() } else { Vec::new() }))
+    }
+
+    fn put(&mut self, theta: &Array1<f64>, c: &Array2<f64>, dc: &[Array2<f64>]) {
+        self.entries.insert(0, (theta.clone(), c.clone(), dc.to_vec()));
+        self.entries.truncate(Self::CAPACITY);
+    }
 }
 
 /// The linear design X = [diag(b)·C_abs, diag(b·x)·C_abs, diag(b·x²)·C_abs] and the pieces of
@@ -109,6 +144,9 @@ impl<'a> VarproProblem<'a> {
         theta: &Array1<f64>,
         derivatives: bool,
     ) -> Result<(Array2<f64>, Vec<Array2<f64>>), ArgminError> {
+        if let Some(hit) = self.recent.lock().ok().and_then(|r| r.get(theta, derivatives)) {
+            return Ok(hit);
+        }
         let (lb, grad) = self.log_betas(theta, derivatives);
         let mut batch = self.batch.lock().map_err(|_| -> ArgminError {
             argmin::argmin_error!(PotentialBug, "speciation cache poisoned")
@@ -164,6 +202,10 @@ impl<'a> VarproProblem<'a> {
                 }
                 dc.push(m);
             }
+        }
+        drop(batch);
+        if let Ok(mut recent) = self.recent.lock() {
+            recent.put(theta, &c, &dc);
         }
         Ok((c, dc))
     }
@@ -289,6 +331,8 @@ impl<'a> VarproProblem<'a> {
             known_values: self.known_values.clone(),
             medium: self.medium.select(rows),
             batch: Mutex::new(SpeciationBatch::new(model, rows.len(), Derivatives::Skip)),
+            recent: Mutex::new(SpeciationCache::default()),
+            derivatives_with_cost: false,
         }
     }
 }
@@ -364,7 +408,7 @@ impl Jacobian for VarproProblem<'_> {
 /// is then formed from the A_p themselves (samples × r each).
 impl GaussNewtonProblem for VarproProblem<'_> {
     fn cost(&self, theta: &Array1<f64>) -> Result<f64, ArgminError> {
-        let (c, _) = self.speciate(theta, false)?;
+        let (c, _) = self.speciate(theta, self.derivatives_with_cost)?;
         let p = self.project(self.design(c.view()))?;
         let y = self.target(c.view());
         let cost = 0.5 * self.residual_sum_of_squares(&p, &y);
