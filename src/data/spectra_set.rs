@@ -384,13 +384,25 @@ impl SpectraSet {
 
     /// Number of masked points.
     pub fn masked_count(&self) -> usize {
-        self.mask.iter().filter(|m| **m).count()
+        match self.mask.as_slice() {
+            Some(flat) => flat.iter().map(|&m| usize::from(m)).sum(),
+            None => self.mask.iter().filter(|m| **m).count(),
+        }
     }
 
     /// Indices of wavelengths where no sample is masked.
     pub fn unmasked_wavelength_indices(&self) -> Vec<usize> {
-        (0..self.n_wavelengths())
-            .filter(|&j| !self.mask.column(j).iter().any(|m| *m))
+        // row by row (the mask's memory order), not column by column
+        let mut any = vec![false; self.n_wavelengths()];
+        for row in self.mask.rows() {
+            for (a, &m) in any.iter_mut().zip(row) {
+                *a |= m;
+            }
+        }
+        any.iter()
+            .enumerate()
+            .filter(|(_, a)| !**a)
+            .map(|(j, _)| j)
             .collect()
     }
 
@@ -765,6 +777,26 @@ mod tests {
         assert_eq!(back, set);
         let broken = json.replace("\"path_cm\":1.0", "\"path_cm\":-1.0");
         assert!(serde_json::from_str::<SpectraSet>(&broken).is_err());
+    }
+
+    #[test]
+    fn masked_points_are_counted_and_their_wavelengths_left_out() {
+        let mut set = build(
+            array![400.0, 500.0, 600.0],
+            array![[0.1, 0.2, 0.3], [0.3, 0.4, 0.5]],
+            two_samples(),
+        )
+        .unwrap();
+        assert_eq!(set.masked_count(), 0);
+        assert_eq!(set.unmasked_wavelength_indices(), vec![0, 1, 2]);
+        set.set_mask(array![[false, false, true], [true, false, true]])
+            .unwrap();
+        assert_eq!(set.masked_count(), 3);
+        assert_eq!(set.unmasked_wavelength_indices(), vec![1]);
+        // the same on a sample subset (a mask that is a copy, not the original layout)
+        let sub = set.select_samples(&["a"]).unwrap();
+        assert_eq!(sub.masked_count(), 1);
+        assert_eq!(sub.unmasked_wavelength_indices(), vec![0, 1]);
     }
 
     #[test]

@@ -1578,7 +1578,14 @@ fn projected_spectra(
     // K = diag(b)·C_k·E_kᵀ; standard errors σ √diag((XᵀX)⁻¹).
     let less_known = problem.less_known(set.absorbance(), c);
     let d = less_known.as_ref();
-    let mut spectra = proj.pinv.dot(d).t().to_owned();
+    // X⁺·D row by row of D (contiguous, one pass; a general product would pack all of D)
+    let mut st = Array2::<f64>::zeros((proj.pinv.nrows(), d.ncols()));
+    for (i, row) in d.rows().into_iter().enumerate() {
+        for (a, mut out) in st.rows_mut().into_iter().enumerate() {
+            out.scaled_add(proj.pinv[[a, i]], &row);
+        }
+    }
+    let mut spectra = st.reversed_axes();
     // At a wavelength the fit left out (a masked point there), the spectrum is estimated from
     // the unmasked samples only, with its own σ√diag((X_uᵀX_u)⁻¹); NaN when they cannot
     // determine it.
