@@ -1516,7 +1516,8 @@ fn summarise(
                 .collect();
             (sol.spectra, sol.se_factors.mapv(|f| sigma * f))
         }
-        None => projected_spectra(set, problem, &proj, c.view(), sigma),
+        // (nw below the grid's size: some wavelength has a masked point)
+        None => projected_spectra(set, problem, &proj, c.view(), sigma, nw < set.n_wavelengths()),
     };
     Ok(HardFit {
         parameters,
@@ -1572,6 +1573,7 @@ fn projected_spectra(
     proj: &Projection,
     c: ndarray::ArrayView2<f64>,
     sigma: f64,
+    any_masked: bool,
 ) -> (Array2<f64>, Array2<f64>) {
     let ns = set.n_samples();
     // Spectra from the full data less the known spectra's part: S = (X⁺ (D − K))ᵀ,
@@ -1590,7 +1592,7 @@ fn projected_spectra(
     // the unmasked samples only, with its own σ√diag((X_uᵀX_u)⁻¹); NaN when they cannot
     // determine it.
     let mut excluded_se: Vec<(usize, Vec<f64>)> = Vec::new();
-    let masked_columns: Vec<usize> = if set.masked_count() == 0 {
+    let masked_columns: Vec<usize> = if !any_masked {
         Vec::new()
     } else {
         (0..set.n_wavelengths())
