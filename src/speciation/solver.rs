@@ -904,6 +904,30 @@ fn cholesky_scaled(h: &[f64], d: &[f64], n: usize, mu: f64, l: &mut [f64]) -> bo
     true
 }
 
+/// The shapes a batch speciation needs (samples from `log_betas`): (samples, species,
+/// components).
+fn check_shapes(
+    model: &ValidModel,
+    log_betas: ArrayView2<f64>,
+    totals: ArrayView2<f64>,
+    n_ids: usize,
+    batch: &SpeciationBatch,
+) -> Result<(usize, usize, usize), SpeciationError> {
+    let (ns, nsp, nc) = (log_betas.nrows(), model.n_species(), model.n_components());
+    check_len("log_betas columns (species)", nsp, log_betas.ncols())?;
+    check_len("totals rows (samples)", ns, totals.nrows())?;
+    check_len("totals columns (components)", nc, totals.ncols())?;
+    check_len("sample ids", ns, n_ids)?;
+    check_len("batch concentrations rows", ns, batch.concentrations.nrows())?;
+    check_len("batch concentrations columns", nsp, batch.concentrations.ncols())?;
+    check_len("batch free rows", ns, batch.free.nrows())?;
+    check_len("batch free columns", nc, batch.free.ncols())?;
+    if let Some(d) = &batch.derivatives {
+        check_len("batch derivatives", ns * nsp * nsp, d.len())?;
+    }
+    Ok((ns, nsp, nc))
+}
+
 fn check_len(what: &'static str, expected: usize, found: usize) -> Result<(), SpeciationError> {
     if expected == found {
         Ok(())
@@ -1080,21 +1104,10 @@ pub fn speciate_all_into<S: AsRef<str>>(
     start: Start,
     batch: &mut SpeciationBatch,
 ) -> Result<(), SpeciationError> {
-    let (ns, nsp, nc) = (log_betas.nrows(), model.n_species(), model.n_components());
-    check_len("log_betas columns (species)", nsp, log_betas.ncols())?;
-    check_len("totals rows (samples)", ns, totals.nrows())?;
-    check_len("totals columns (components)", nc, totals.ncols())?;
-    check_len("sample ids", ns, sample_ids.len())?;
-    check_len("batch concentrations rows", ns, batch.concentrations.nrows())?;
-    check_len("batch concentrations columns", nsp, batch.concentrations.ncols())?;
-    check_len("batch free rows", ns, batch.free.nrows())?;
-    check_len("batch free columns", nc, batch.free.ncols())?;
+    let (ns, nsp, nc) = check_shapes(model, log_betas, totals, sample_ids.len(), batch)?;
     batch.iterations.resize(ns, 0);
     batch.residuals.resize(ns, 0.0);
     batch.ionic_strength.resize(ns, f64::NAN);
-    if let Some(d) = &batch.derivatives {
-        check_len("batch derivatives", ns * nsp * nsp, d.len())?;
-    }
     let mut ws = Workspace::new(model);
     let mut start_u = vec![0.0; nc];
     let mut dbuf = vec![0.0; if batch.derivatives.is_some() { nsp * nsp } else { 0 }];
@@ -1284,18 +1297,7 @@ pub fn speciate_all_in_medium<S: AsRef<str>>(
     if medium.is_ideal() {
         return speciate_all_into(model, log_betas, totals, sample_ids, start, batch);
     }
-    let (ns, nsp, nc) = (log_betas.nrows(), model.n_species(), model.n_components());
-    check_len("log_betas columns (species)", nsp, log_betas.ncols())?;
-    check_len("totals rows (samples)", ns, totals.nrows())?;
-    check_len("totals columns (components)", nc, totals.ncols())?;
-    check_len("sample ids", ns, sample_ids.len())?;
-    check_len("batch concentrations rows", ns, batch.concentrations.nrows())?;
-    check_len("batch concentrations columns", nsp, batch.concentrations.ncols())?;
-    check_len("batch free rows", ns, batch.free.nrows())?;
-    check_len("batch free columns", nc, batch.free.ncols())?;
-    if let Some(d) = &batch.derivatives {
-        check_len("batch derivatives", ns * nsp * nsp, d.len())?;
-    }
+    let (ns, nsp, nc) = check_shapes(model, log_betas, totals, sample_ids.len(), batch)?;
     let activity_on = !medium.activity.is_none();
     let charges = if activity_on {
         check_len("medium temperatures (samples)", ns, medium.temperatures_k.len())?;
