@@ -9,6 +9,8 @@
 //! Side-by-side mode for `scripts/compare_peer.py`: with `ISOSBESTIC_PEER_DATA=DIR` the bench
 //! also loads every data set folder in DIR (spectra.csv + samples.csv with `Mt_M`, `Lt_M`),
 //! times the same fit on it and prints `PEER_COMPARE <folder> <median seconds> <ΔH° kJ/mol> <its standard error>` lines.
+//! `ISOSBESTIC_RESIDUAL_SVD=0` turns [`HardFitParams::residual_svd`] off for the timed fits
+//! (the fit and its standard errors only, as the peer times itself).
 //! `ISOSBESTIC_PEER_START_GRID=n` sets [`HardFitParams::start_grid`] for the timed fits (to
 //! measure what the start search costs).
 //!
@@ -93,6 +95,10 @@ fn simulated(n_wl: usize, n_t: usize) -> SpectraSet {
 /// Returns ΔH° and its standard error, kJ/mol.
 fn fit_once(set: &SpectraSet, model: &ValidModel) -> (f64, f64) {
     let mut params = HardFitParams::default();
+    // ISOSBESTIC_RESIDUAL_SVD=0: the fit and its standard errors only (what the peer times)
+    if std::env::var("ISOSBESTIC_RESIDUAL_SVD").is_ok_and(|v| v == "0") {
+        params.residual_svd = false;
+    }
     if let Some(g) = std::env::var("ISOSBESTIC_PEER_START_GRID")
         .ok()
         .and_then(|g| g.parse().ok())

@@ -485,7 +485,11 @@ pub fn bootstrap(
 
 /// One refit; `None` when it fails or does not converge.
 fn fit_replicate(set: &SpectraSet, model: &ValidModel, params: &HardFitParams) -> Option<Replicate> {
-    let f = fit(set, model, params).ok()?;
+    let params = HardFitParams {
+        residual_svd: false, // a replicate needs its parameters only
+        ..params.clone()
+    };
+    let f = fit(set, model, &params).ok()?;
     if !f.termination.converged() {
         return None;
     }

@@ -235,6 +235,11 @@ pub struct HardFitParams {
     /// Weights of the data points: uniform (default) or growing with the absorbance (the
     /// columnwise path of [`columnwise`]).
     pub weighting: Weighting,
+    /// Compute [`HardFit::residual_singular_values`] (the residual-structure diagnostic: an
+    /// SVD of the samples × rank residual matrix, about as costly as the rest of a fit on 100
+    /// spectra). On by default; refits that only want the parameters (bootstrap replicates)
+    /// turn it off, and the list is then empty.
+    pub residual_svd: bool,
 }
 
 impl Default for HardFitParams {
@@ -253,6 +258,7 @@ impl Default for HardFitParams {
             solver: LmParams::default(),
             spectra_sign: SpectraSign::Free,
             weighting: Weighting::Uniform,
+            residual_svd: true,
         }
     }
 }
@@ -332,6 +338,7 @@ pub struct HardFit {
     /// those of the reduced residual, since the reduction is an orthogonal change of basis. A
     /// first value well above the noise edge σ(√samples + √wavelengths) means structure the
     /// model misses.
+    /// Empty when [`HardFitParams::residual_svd`] is off.
     pub residual_singular_values: Vec<f64>,
     /// Number of data values (samples × wavelengths).
     pub n_data: usize,
@@ -1083,8 +1090,10 @@ pub fn fit_with_progress(
         }
         fit = keep;
     }
-    let theta: Array1<f64> = fit.parameters.iter().map(|p| p.value).collect();
-    fit.residual_singular_values = residual_singular_values(&problem, &theta)?;
+    if params.residual_svd {
+        let theta: Array1<f64> = fit.parameters.iter().map(|p| p.value).collect();
+        fit.residual_singular_values = residual_singular_values(&problem, &theta)?;
+    }
     Ok(fit)
 }
 
@@ -1773,6 +1782,36 @@ mod tests {
                 err <= 1e-5 * scale + 1e-14,
                 "parameter {p}: max |J − FD| = {err}, scale {scale}"
             );
+        }
+    }
+
+    #[test]
+    fn residual_singular_values_are_those_of_the_full_residual_matrix_and_can_be_skipped() {
+        let model = two_complex_model(0.4, 12_000.0, -0.2, 35_000.0);
+        let mut plan = small_plan();
+        plan.noise = Noise::Absorbance { sd_au: 1e-3 };
+        let sim = simulate(&model, &plan).unwrap();
+        let params = HardFitParams::default();
+        let with = fit(&sim.set, &model, &params).unwrap();
+        // Reference: LAPACK's SVD (dgesdd) of D − D̂ formed on the full wavelength grid
+        let d_hat = bootstrap::fitted_values(&sim.set, &params, &with).unwrap();
+        let (_, s, _) = (sim.set.absorbance() - &d_hat).svddc(JobSvd::None).unwrap();
+        assert!(!with.residual_singular_values.is_empty());
+        for (ours, full) in with.residual_singular_values.iter().zip(&s) {
+            assert!((ours - full).abs() <= 1e-9 * s[0], "{ours} vs {full}");
+        }
+        let without = fit(
+            &sim.set,
+            &model,
+            &HardFitParams {
+                residual_svd: false,
+                ..params
+            },
+        )
+        .unwrap();
+        assert!(without.residual_singular_values.is_empty());
+        for (a, b) in with.parameters.iter().zip(&without.parameters) {
+            assert!((a.value - b.value).abs() <= 1e-12 * a.value.abs().max(1.0));
         }
     }
 
