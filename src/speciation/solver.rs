@@ -285,7 +285,13 @@ impl<'m> Workspace<'m> {
 
     /// H = Aᵀ diag(c) A (identity rows for absent components), factorised with Jacobi scaling
     /// into `l`/`d`. Returns false when not positive definite even after regularisation.
+    ///
+    /// Two active components (a metal and a ligand: the common case) take the same
+    /// factorisation written out ([`Workspace::factor_2x2`]).
     fn factor_jacobian(&mut self, c: &[f64]) -> bool {
+        if self.nc == 2 && self.active_c[0] && self.active_c[1] && self.factor_2x2(c) {
+            return true;
+        }
         let nc = self.nc;
         for j in 0..nc {
             for k in 0..=j {
@@ -322,8 +328,52 @@ impl<'m> Workspace<'m> {
         false
     }
 
+    /// The general path's scaled Cholesky (μ = 0) written out for two active components: the
+    /// same operations in the same order, into the same `h`, `d` and `l`, without the loops and
+    /// bounds checks. False when a pivot fails (left to the regularised general path).
+    fn factor_2x2(&mut self, c: &[f64]) -> bool {
+        let (mut h00, mut h01, mut h11) = (0.0, 0.0, 0.0);
+        for (row, &ci) in self.a.chunks_exact(2).zip(c) {
+            h00 += row[0] * row[0] * ci;
+            h01 += row[0] * row[1] * ci;
+            h11 += row[1] * row[1] * ci;
+        }
+        let scale = |h: f64| {
+            if h > 0.0 && h.is_finite() {
+                1.0 / h.sqrt()
+            } else {
+                1.0
+            }
+        };
+        let (d0, d1) = (scale(h00), scale(h11));
+        self.h.copy_from_slice(&[h00, h01, h01, h11]);
+        self.d.copy_from_slice(&[d0, d1]);
+        let s00 = d0 * h00 * d0;
+        if s00 <= 1e-14 || s00.is_nan() {
+            return false;
+        }
+        let l00 = s00.sqrt();
+        let l10 = d1 * h01 * d0 / l00;
+        let s11 = d1 * h11 * d1 - l10 * l10;
+        if s11 <= 1e-14 || s11.is_nan() {
+            return false;
+        }
+        self.l.copy_from_slice(&[l00, 0.0, l10, s11.sqrt()]);
+        true
+    }
+
     /// Solves H x = b with the factor from [`Workspace::factor_jacobian`]; `x` overwrites `b`.
     fn solve_factored(&self, b: &mut [f64]) {
+        if let ([b0, b1], [l00, _, l10, l11], [d0, d1]) = (&mut *b, &self.l[..], &self.d[..]) {
+            // the loops below for n = 2, written out
+            let y0 = (*b0 * d0) / l00;
+            let y1 = (*b1 * d1 - l10 * y0) / l11;
+            let x1 = y1 / l11;
+            let x0 = (y0 - l10 * x1) / l00;
+            *b0 = x0 * d0;
+            *b1 = x1 * d1;
+            return;
+        }
         let nc = self.nc;
         for j in 0..nc {
             b[j] *= self.d[j];
@@ -1465,6 +1515,44 @@ mod tests {
         let r1 = h[2] * b[0] + h[3] * b[1];
         assert_relative_eq!(r0, 1.0, max_relative = 1e-8);
         assert_relative_eq!(r1, 2.0, max_relative = 1e-8);
+    }
+
+    #[test]
+    fn the_written_out_two_component_factor_is_the_general_one_bit_for_bit() {
+        let model = ml_model();
+        let mut ws = Workspace::new(&model);
+        ws.load(&model, [0.0, 0.0, 3.0], [1.0, 1.0], "s").unwrap();
+        for c in [
+            [1e-30, 1.0, 1e10],
+            [0.3, 2e-3, 7e-5],
+            [1.0, 1.0, 1.0],
+            [5e-9, 0.1, 0.2],
+        ] {
+            assert!(ws.factor_jacobian(&c));
+            // the general path: H and its scaling as the loops build them, then cholesky_scaled
+            let (nc, nsp) = (2, 3);
+            let mut h = vec![0.0; 4];
+            for j in 0..nc {
+                for k in 0..nc {
+                    let mut s = 0.0;
+                    for i in 0..nsp {
+                        s += ws.a[i * nc + j] * ws.a[i * nc + k] * c[i];
+                    }
+                    h[j * nc + k] = s;
+                }
+            }
+            let d: Vec<f64> = (0..nc).map(|j| 1.0 / h[j * nc + j].sqrt()).collect();
+            let mut l = vec![0.0; 4];
+            assert!(cholesky_scaled(&h, &d, nc, 0.0, &mut l));
+            let bits = |v: &[f64]| v.iter().map(|x| x.to_bits()).collect::<Vec<_>>();
+            assert_eq!(bits(&ws.h), bits(&h), "H at c = {c:?}");
+            assert_eq!(bits(&ws.d), bits(&d), "scaling at c = {c:?}");
+            assert_eq!(
+                bits(&[ws.l[0], ws.l[2], ws.l[3]]),
+                bits(&[l[0], l[2], l[3]]),
+                "factor at c = {c:?}"
+            );
+        }
     }
 
     #[test]

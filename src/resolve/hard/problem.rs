@@ -56,8 +56,11 @@ pub(crate) struct VarproProblem<'a> {
 /// the same θ again (the same bits: only exact repeats hit).
 #[derive(Debug, Default)]
 pub struct SpeciationCache {
-    entries: Vec<(Array1<f64>, Array2<f64>, Vec<Array2<f64>>)>,
+    entries: Vec<CachedSpeciation>,
 }
+
+/// θ, C at θ, and ∂C/∂θ_p (empty when not computed).
+type CachedSpeciation = (Array1<f64>, Array2<f64>, Vec<Array2<f64>>);
 
 impl SpeciationCache {
     /// Entries kept.
