@@ -422,14 +422,24 @@ impl GaussNewtonProblem for VarproProblem<'_> {
         let (c, dc) = self.speciate(theta, true)?;
         let proj = self.project(self.design(c.view()))?;
         let y = self.target(c.view());
-        let r = self.residual_matrix(&proj, &y);
+        let uty = proj.u.t().dot(&*y); // UᵀY
+        let r = &*y - &proj.u.dot(&uty); // R = Q_X Y
         let p_mat = proj.pinv.t(); // P = X⁺ᵀ, samples × m
-        let gtp = y.t().dot(&p_mat); // YᵀP, rank × m
+        // YᵀP = (UᵀY)ᵀ·(UᵀP), rank × m: P = U·Σ⁻¹·Vᵀ lies in range(U) (no product with Y)
+        let gtp = uty.t().dot(&proj.u.t().dot(&p_mat));
         let rgp = r.dot(&gtp); // R·YᵀP = Q_X M P, samples × m
         let k_mat = proj.pinv.dot(&p_mat); // PᵀP, m × m
         let dx: Vec<Array2<f64>> = dc.iter().map(|d| self.design(d.view())).collect();
-        let rtdx: Vec<Array2<f64>> = dx.iter().map(|d| r.t().dot(d)).collect();
         let np = dx.len();
+        let m = proj.pinv.nrows();
+        // Rᵀ·[∂X_1 … ∂X_p] in one product, then its blocks Rᵀ∂X_p
+        let views: Vec<ArrayView2<f64>> = dx.iter().map(|d| d.view()).collect();
+        let dx_all = ndarray::concatenate(ndarray::Axis(1), &views)
+            .map_err(|e| -> ArgminError { argmin::argmin_error!(PotentialBug, e.to_string()) })?;
+        let rtdx_all = r.t().dot(&dx_all);
+        let rtdx: Vec<ArrayView2<f64>> = (0..np)
+            .map(|q| rtdx_all.slice(ndarray::s![.., q * m..(q + 1) * m]))
+            .collect();
         let mut gradient: Array1<f64> = dx.iter().map(|d| -(d * &rgp).sum()).collect();
         // ⟨A_p, A_q⟩: through PᵀMP without known spectra; from the A_p themselves with them.
         let a_inner: Box<dyn Fn(usize, usize) -> f64> = if self.known.is_empty() {
