@@ -82,7 +82,8 @@ use known::KnownSpectra;
 use super::lm::{self, LmParams, LmTermination};
 use crate::data::SpectraSet;
 use crate::speciation::{
-    Derivatives, FormationLaw, Medium, SpeciationBatch, SpeciationError, StandardQuantities, ValidModel,
+    Derivatives, FormationLaw, Medium, SpeciationBatch, SpeciationError, SpeciesRole, StandardQuantities,
+    ValidModel,
 };
 use crate::thermo::{ActivityCorrection, ConcentrationScale, SolventDensity};
 use columnwise::FitProblem;
@@ -1036,11 +1037,34 @@ pub fn fit_with_progress(
         None
     } else {
         let best_signs = signs(&out.param);
-        starts
-            .iter()
-            .find(|x| signs(x) != best_signs)
+        let grid = starts.iter().find(|x| signs(x) != best_signs);
+        // For one complex, the mirror image of the solution (`mirror_image`) is usually much
+        // closer to the other side's minimum than the best grid point there: the lower cost of
+        // the two wins, and a run from the image starts with little damping.
+        let image = grid
+            .and(mirror_image(problem.varpro(), &out.param))
+            .filter(|x| signs(x) != best_signs);
+        let cost = |x: &Array1<f64>| {
+            use crate::resolve::lm::GaussNewtonProblem;
+            problem
+                .cost(x)
+                .ok()
+                .filter(|c| c.is_finite())
+                .unwrap_or(f64::INFINITY)
+        };
+        let start = match (grid, image) {
+            (Some(g), Some(i)) if cost(&i) <= cost(g) => Some((
+                i,
+                LmParams {
+                    initial_damping: 1e-4,
+                    ..solver.clone()
+                },
+            )),
+            (g, _) => g.map(|g| (g.clone(), solver.clone())),
+        };
+        start
             .inspect(|_| progress(FitProgress::SolverRun { run: runs + 1 }))
-            .and_then(|x| lm::minimise_normal_equations(&problem, x.clone(), solver.clone()).ok())
+            .and_then(|(x, settings)| lm::minimise_normal_equations(&problem, x, settings).ok())
             // a run that drove a species out of the model is a plateau, not a mirror solution
             .filter(|o| !has_vanished_species(problem.varpro(), &o.param))
     };
@@ -1095,6 +1119,76 @@ pub fn fit_with_progress(
         fit.residual_singular_values = residual_singular_values(&problem, &theta)?;
     }
     Ok(fit)
+}
+
+/// The mirror image of θ for one complex M + nL ⇌ MLₙ whose log β_ref and ΔH° are the free
+/// parameters: the free metal and the complex swap roles. In sample i the complex fraction f
+/// becomes 1 − f, so K′ = 1/(K·L·L′)ⁿ with L the free ligand at θ and L′ = L_t − n·M_t·(1 − f)
+/// the one after the swap; log K′ is then fitted by the law's own linear form in (log β_ref,
+/// ΔH°) (least squares over the samples, with ∂log β/∂ΔH° from the law). The ligand is the
+/// component with the larger totals; the metal must enter the complex once. `None` for any
+/// other model: a start candidate only, compared by its cost.
+fn mirror_image(problem: &VarproProblem<'_>, theta: &Array1<f64>) -> Option<Array1<f64>> {
+    let (model, free) = (problem.model, problem.free);
+    let [a, b] = free else {
+        return None;
+    };
+    let k = a.species;
+    let sp = &model.species()[k];
+    if model.n_components() != 2 || b.species != k || !matches!(sp.role, SpeciesRole::Formed) {
+        return None;
+    }
+    let (lb, dh) = match (a.name.as_str(), b.name.as_str()) {
+        ("log_beta_ref", "dh_ref") => (0, 1),
+        ("dh_ref", "log_beta_ref") => (1, 0),
+        _ => return None,
+    };
+    let totals = &problem.totals;
+    let sum = |j: usize| totals.column(j).sum();
+    let (metal, ligand) = if sum(0) < sum(1) { (0, 1) } else { (1, 0) };
+    let n = *sp.stoichiometry.get(ligand)?;
+    if sp.stoichiometry.get(metal) != Some(&1) || n < 1 {
+        return None;
+    }
+    let free_species = |j: usize| {
+        model
+            .species()
+            .iter()
+            .position(|s| matches!(s.role, SpeciesRole::FreeComponent(c) if c == j))
+    };
+    let (m_free, l_free) = (free_species(metal)?, free_species(ligand)?);
+    let (c, _) = problem.speciate(theta, false).ok()?;
+    let (log_beta, grad) = problem.log_betas(theta, true);
+    let grad = grad?;
+    let nf = f64::from(n);
+    // (x, y) = (∂log β/∂ΔH°, log K′) per sample
+    let mut points = Vec::with_capacity(c.nrows());
+    for i in 0..c.nrows() {
+        let (ml, m, l) = (c[[i, k]], c[[i, m_free]], c[[i, l_free]]);
+        let f = ml / (ml + m);
+        let l_swapped = totals[[i, ligand]] - nf * totals[[i, metal]] * (1.0 - f);
+        if !(l > 0.0 && l_swapped > 0.0 && f.is_finite()) {
+            return None;
+        }
+        let y = -log_beta[[i, k]] - nf * (l.log10() + l_swapped.log10());
+        points.push((grad[[i, dh]], y));
+    }
+    // least squares y = β₀ + ΔH°·x
+    let np = points.len() as f64;
+    let (mx, my) = points
+        .iter()
+        .fold((0.0, 0.0), |(sx, sy), (x, y)| (sx + x / np, sy + y / np));
+    let (sxx, sxy) = points.iter().fold((0.0, 0.0), |(a, b), (x, y)| {
+        (a + (x - mx) * (x - mx), b + (x - mx) * (y - my))
+    });
+    if !(sxx > 0.0) {
+        return None;
+    }
+    let slope = sxy / sxx;
+    let mut image = theta.clone();
+    image[dh] = slope;
+    image[lb] = my - slope * mx;
+    image.iter().all(|v| v.is_finite()).then_some(image)
 }
 
 /// Which of two distinct solutions a fit keeps ([`choose_side`]).
@@ -1813,6 +1907,38 @@ mod tests {
         for (a, b) in with.parameters.iter().zip(&without.parameters) {
             assert!((a.value - b.value).abs() <= 1e-12 * a.value.abs().max(1.0));
         }
+    }
+
+    #[test]
+    fn the_mirror_image_swaps_the_free_metal_and_complex_fractions() {
+        // M + 4L ⇌ ML4 with the ligand in excess; defining property of the image θ′ (checked by
+        // speciating at θ′): in every sample the complex fraction becomes 1 − f
+        let model = crate::testing::metal_ligand_model("M", "L", &[(4, 4.0, 30e3)], None);
+        let mut plan = crate::testing::small_plan("M", "L", &["ML4"]);
+        plan.series.truncate(1);
+        plan.series[0].totals_m = [("M".to_string(), 0.004), ("L".to_string(), 0.1)].into();
+        let sim = simulate(&model, &plan).unwrap();
+        let free = free_parameters(&model);
+        let (problem, _, _) = build_problem(&sim.set, &model, &free, &HardFitParams::default()).unwrap();
+        let theta = ndarray::array![4.0, 30e3];
+        let image = mirror_image(&problem, &theta).expect("one complex: an image");
+        assert!(image[1] < 0.0, "ΔH° changes sign: {image}");
+        let fraction = |c: &Array2<f64>, i: usize| c[[i, 2]] / (c[[i, 2]] + c[[i, 0]]);
+        let (c, _) = problem.speciate(&theta, false).unwrap();
+        let (c_image, _) = problem.speciate(&image, false).unwrap();
+        for i in 0..c.nrows() {
+            let (f, f_image) = (fraction(&c, i), fraction(&c_image, i));
+            assert!(
+                (f_image - (1.0 - f)).abs() < 0.02,
+                "sample {i}: f {f}, image {f_image}"
+            );
+        }
+        // two complexes: no image
+        let two = two_complex_model(0.4, 12_000.0, -0.2, 35_000.0);
+        let sim2 = simulate(&two, &small_plan()).unwrap();
+        let free2 = free_parameters(&two);
+        let (p2, _, _) = build_problem(&sim2.set, &two, &free2, &HardFitParams::default()).unwrap();
+        assert!(mirror_image(&p2, &ndarray::array![0.4, 12_000.0, -0.2, 35_000.0]).is_none());
     }
 
     #[test]
