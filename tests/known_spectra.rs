@@ -208,31 +208,24 @@ fn the_fit_command_reads_the_known_spectrum_the_model_names() {
         r#"{ name = "M", absorbs = true, known_spectrum = "ref/m.csv" }"#,
     );
     std::fs::write(&config.model, &with_file).unwrap();
-    let fit = |out: &str| {
-        run(Command::new(env!("CARGO_BIN_EXE_isosbestic"))
-            .args(["fit", "--quiet", "--spectra"])
+    // `fit` on the configuration's files into `out` (the caller adds --quiet or not)
+    let fit_command = |out: &str| {
+        let mut cmd = Command::new(env!("CARGO_BIN_EXE_isosbestic"));
+        cmd.args(["fit", "--spectra"])
             .arg(&config.data.paths()[0])
             .arg("--samples")
             .arg(&config.data.paths()[1])
             .arg("--model")
             .arg(&config.model)
             .arg("--out")
-            .arg(dir.path().join(out)))
+            .arg(dir.path().join(out));
+        cmd
     };
+    let fit = |out: &str| run(fit_command(out).arg("--quiet"));
     let (code, err) = fit("out");
     assert_eq!(code, 0, "{err}");
     let (code, stdout) = {
-        let out = Command::new(env!("CARGO_BIN_EXE_isosbestic"))
-            .args(["fit", "--spectra"])
-            .arg(&config.data.paths()[0])
-            .arg("--samples")
-            .arg(&config.data.paths()[1])
-            .arg("--model")
-            .arg(&config.model)
-            .arg("--out")
-            .arg(dir.path().join("printed"))
-            .output()
-            .unwrap();
+        let out = fit_command("printed").output().unwrap();
         (
             out.status.code(),
             String::from_utf8_lossy(&out.stdout).into_owned(),
