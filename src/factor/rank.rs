@@ -188,15 +188,18 @@ pub struct RankEstimate {
     pub chosen: usize,
     /// Sentences saying what each criterion gave and why `chosen` was adopted.
     pub reasoning: Vec<String>,
-    /// IND(k) for k = 1 … k_max (element k − 1).
+    /// IND(k) for k = 1 … k_max (element k − 1; shorter when the data are exact in fewer
+    /// factors, see [`estimate_rank`]).
     pub ind: Vec<f64>,
-    /// F-test rows for k = 1 … k_max.
+    /// F-test rows for k = 1 … k_max (as `ind`).
     pub f_test: Vec<FTestRow>,
 }
 
 /// Estimates the rank of D from its decomposition.
 ///
 /// k_max = min(`max_rank`, min(r, c) − 1): both criteria need at least one residual factor.
+/// Factors whose singular values are at the rounding level (≤ max(r, c)·ε·σ₁) are not searched:
+/// on exact data both criteria would otherwise compare rounding with rounding.
 /// The F-test rank is the largest k ≤ k_max whose factor is significant (p < `significance`),
 /// i.e. the scan runs from k_max downwards and stops at the first significant factor. Every factor
 /// tested before it is then compared with a pool of presumed-noise factors only; scanning from
@@ -248,13 +251,19 @@ pub fn estimate_rank(
         });
     }
 
-    let ind: Vec<f64> = (1..=k_max).filter_map(|k| dec.indicator(k)).collect();
+    // Singular values at the rounding level of the decomposition (max(r, c)·ε·σ₁, LAPACK's
+    // numerical-rank convention) are zeros: beyond them the indicator function and the F-test
+    // would compare rounding with rounding (exact, noise-free data).
+    let rounding = rows.max(cols) as f64 * f64::EPSILON * sv[0];
+    let numerical_rank = sv.iter().filter(|&&x| x > rounding).count();
+    let k_searched = k_max.min(numerical_rank.max(1));
+    let ind: Vec<f64> = (1..=k_searched).filter_map(|k| dec.indicator(k)).collect();
     let by_indicator = ind
         .iter()
         .enumerate()
         .min_by(|a, b| a.1.total_cmp(b.1))
         .map_or(0, |(i, _)| i + 1);
-    let f_test: Vec<FTestRow> = (1..=k_max).filter_map(|k| dec.f_test(k)).collect();
+    let f_test: Vec<FTestRow> = (1..=k_searched).filter_map(|k| dec.f_test(k)).collect();
     let by_f_test = f_test
         .iter()
         .rposition(|row| row.p_value < significance)
@@ -262,14 +271,21 @@ pub fn estimate_rank(
     let by_noise = known_noise.map(|sigma| dec.count_above_noise(sigma).min(k_max));
 
     let mut reasoning = Vec::new();
+    if k_searched < k_max {
+        reasoning.push(format!(
+            "Singular values beyond the first {numerical_rank} are at the rounding level \
+             (≤ max(r, c)·ε·σ₁ = {rounding:.3e}): the data hold exactly {numerical_rank} factor(s) \
+             and the search stops there."
+        ));
+    }
     reasoning.push(format!(
         "Malinowski's indicator function IND(k) = RE(k)/(c − k)² is smallest at k = {by_indicator} \
-         (searched k = 1…{k_max})."
+         (searched k = 1…{k_searched})."
     ));
     let level = 100.0 * significance;
     let f_sentence = match (by_f_test, f_test.get(by_f_test)) {
         (0, _) => format!(
-            "Malinowski's F-test at the {level:.1} % level finds no significant factor among k = 1…{k_max}."
+            "Malinowski's F-test at the {level:.1} % level finds no significant factor among k = 1…{k_searched}."
         ),
         (_, Some(next)) => format!(
             "Malinowski's F-test at the {level:.1} % level: factor {by_f_test} is the last significant one \
@@ -278,6 +294,10 @@ pub fn estimate_rank(
             next.k,
             next.f,
             next.p_value
+        ),
+        (_, None) if k_searched < k_max => format!(
+            "Malinowski's F-test at the {level:.1} % level finds factor {by_f_test} significant, the \
+             last one above the rounding level."
         ),
         (_, None) => format!(
             "Malinowski's F-test at the {level:.1} % level finds factor {by_f_test} significant, the \
