@@ -7,9 +7,10 @@ use isosbestic::report::fit::{
     FIT_OUTPUTS, FIT_PAGE_OUTPUTS, run_fit, vant_hoff_table, write_fit_outputs, write_fit_page,
 };
 use isosbestic::resolve::hard::{HardFitParams, fit};
+use isosbestic::simulate::Noise;
 use isosbestic::simulate::simulate;
 use std::f64::consts::LN_10;
-use support::{ONE_COMPLEX, TWO_COMPLEXES, model, plan, write_inputs};
+use support::{ONE_COMPLEX, TWO_COMPLEXES, model, plan, write_inputs_with_noise};
 
 #[test]
 fn a_one_complex_fit_shows_the_classic_estimates_beside_the_global_curve() {
@@ -71,7 +72,13 @@ fn a_two_complex_fit_plots_both_curves_and_says_why_the_classic_points_are_missi
 #[test]
 fn the_fit_outputs_hold_the_van_t_hoff_table_and_the_page_the_new_figures() {
     let dir = tempfile::tempdir().unwrap();
-    let config = write_inputs(dir.path(), ONE_COMPLEX, &["M", "MX"]);
+    // noisy data: the residuals' sum of squares below is then far above the rounding level
+    let config = write_inputs_with_noise(
+        dir.path(),
+        ONE_COMPLEX,
+        &["M", "MX"],
+        Noise::Absorbance { sd_au: 1e-3 },
+    );
     let (report, set) = run_fit(&config).unwrap();
     let out = dir.path().join("out");
     write_fit_outputs(&out, &report, false).unwrap();

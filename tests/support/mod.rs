@@ -86,8 +86,20 @@ pub fn plan(species: &[&str]) -> SimulationPlan {
 
 /// Simulates `model_text` into CSV files in `dir` and returns the run configuration.
 pub fn write_inputs(dir: &Path, model_text: &str, species: &[&str]) -> FitRunConfig {
+    write_inputs_with_noise(dir, model_text, species, Noise::None)
+}
+
+/// [`write_inputs`] with noise added to the simulated absorbances.
+pub fn write_inputs_with_noise(dir: &Path, model_text: &str, species: &[&str], noise: Noise) -> FitRunConfig {
     let m = model(model_text);
-    let sim = simulate(&m, &plan(species)).unwrap();
+    let sim = simulate(
+        &m,
+        &SimulationPlan {
+            noise,
+            ..plan(species)
+        },
+    )
+    .unwrap();
     let (spectra, samples, model_path) = (
         dir.join("spectra.csv"),
         dir.join("samples.csv"),
