@@ -53,7 +53,8 @@ pub(crate) struct VarproProblem<'a> {
 
 /// Concentrations (and ∂C/∂θ when computed) at the last few θ, newest first: the solver's
 /// cost and normal equations at an accepted point, and the summary of a finished run, ask for
-/// the same θ again (the same bits: only exact repeats hit).
+/// the same θ again (the same bits: only exact repeats hit). The capacity covers the few
+/// points of the mirror-side run, which comes between the first run's end and its summary.
 #[derive(Debug, Default)]
 pub struct SpeciationCache {
     entries: Vec<CachedSpeciation>,
@@ -64,7 +65,7 @@ type CachedSpeciation = (Array1<f64>, Array2<f64>, Vec<Array2<f64>>);
 
 impl SpeciationCache {
     /// Entries kept.
-    const CAPACITY: usize = 3;
+    const CAPACITY: usize = 8;
 
     fn get(&self, theta: &Array1<f64>, derivatives: bool) -> Option<(Array2<f64>, Vec<Array2<f64>>)> {
         self.entries
@@ -279,7 +280,9 @@ impl<'a> VarproProblem<'a> {
     }
 
     /// D − diag(b)·C_known·E_knownᵀ on the full wavelength grid (D itself, borrowed, when no
-    /// spectrum is known): the data the fitted spectra explain.
+    /// spectrum is known): the data the fitted spectra explain (the tests' check of the
+    /// reduction; the fit itself never copies D).
+    #[cfg(test)]
     pub fn less_known<'d>(&self, d: &'d Array2<f64>, c: ArrayView2<f64>) -> Cow<'d, Array2<f64>> {
         if self.known.is_empty() {
             return Cow::Borrowed(d);
