@@ -11,6 +11,8 @@
 //! times the same fit on it and prints `PEER_COMPARE <folder> <median seconds> <ΔH° kJ/mol> <its standard error>` lines.
 //! `ISOSBESTIC_RESIDUAL_SVD=0` turns [`HardFitParams::residual_svd`] off for the timed fits
 //! (the fit and its standard errors only, as the peer times itself).
+//! `ISOSBESTIC_PHASES=<folder>:<n>` prints the median time of each phase of a fit (set-up,
+//! start search, solver runs, summaries) over n fits on one of the peer's data folders.
 //! `ISOSBESTIC_PEER_START_GRID=n` sets [`HardFitParams::start_grid`] for the timed fits (to
 //! measure what the start search costs).
 //!
@@ -134,6 +136,54 @@ fn load_peer(dir: &Path) -> SpectraSet {
     load(&DataFiles::csv(dir.join("spectra.csv"), dir.join("samples.csv"))).expect("peer data set")
 }
 
+/// Where the time of one fit goes: the progress events split it into set-up (totals, baseline
+/// removal, reduction), start search, each solver run and the summaries (including the mirror
+/// comparison and the optional residual SVD). Prints the median of each phase over `count` fits
+/// on stderr.
+fn phases(set: &SpectraSet, count: usize) {
+    use isosbestic::resolve::hard::FitProgress;
+    use std::cell::RefCell;
+    let start = ml4_model("Mt", "Lt", 3.0, 0.0);
+    let params = HardFitParams {
+        residual_svd: !std::env::var("ISOSBESTIC_RESIDUAL_SVD").is_ok_and(|v| v == "0"),
+        ..Default::default()
+    };
+    let mut rows: Vec<Vec<(String, f64)>> = Vec::new();
+    for _ in 0..count.max(1) {
+        let marks: RefCell<Vec<(String, Instant)>> = RefCell::new(vec![("set-up".into(), Instant::now())]);
+        let fit = hard::fit_with_progress(set, &start, &params, &|e| {
+            let label = match e {
+                FitProgress::StartsScored { done: 1, .. } => "start search".to_string(),
+                FitProgress::SolverRun { run } => format!("solver run {run}"),
+                FitProgress::Summarising => "summaries".to_string(),
+                _ => return,
+            };
+            marks.borrow_mut().push((label, Instant::now()));
+        });
+        black_box(fit.expect("fit"));
+        let end = Instant::now();
+        let marks = marks.into_inner();
+        let row = marks
+            .iter()
+            .enumerate()
+            .map(|(i, (label, t))| {
+                let next = marks.get(i + 1).map_or(end, |m| m.1);
+                (label.clone(), (next - *t).as_secs_f64() * 1e3)
+            })
+            .collect();
+        rows.push(row);
+    }
+    let labels: Vec<String> = rows[0].iter().map(|(l, _)| l.clone()).collect();
+    for label in labels {
+        let mut v: Vec<f64> = rows
+            .iter()
+            .filter_map(|r| r.iter().find(|(l, _)| *l == label).map(|x| x.1))
+            .collect();
+        v.sort_by(f64::total_cmp);
+        eprintln!("{label:>14}: {:.3} ms (median of {})", v[v.len() / 2], v.len());
+    }
+}
+
 /// Times the fit on the peer's data folders (median of at least 5 runs and ~1 s).
 fn peer_compare(root: &Path) {
     let start = ml4_model("Mt", "Lt", 3.0, 0.0);
@@ -197,6 +247,12 @@ fn main() {
             for _ in 0..count {
                 black_box(fit_once(&set, &start));
             }
+        }
+        return;
+    }
+    if let Ok(spec) = std::env::var("ISOSBESTIC_PHASES") {
+        if let Some((dir, count)) = spec.rsplit_once(':') {
+            phases(&load_peer(Path::new(dir)), count.parse().unwrap_or(1));
         }
         return;
     }
