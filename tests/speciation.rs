@@ -421,6 +421,33 @@ fn batch_results_equal_single_sample_results_and_warm_start_agrees() {
     }
     // starting from the previous answer takes less work than starting from the totals
     assert!(warm.iterations.iter().sum::<usize>() < cold.iterations.iter().sum::<usize>());
+    // at the same constants a warm start is already converged (no step), an extrapolated one
+    // still takes one Newton step per sample, and both give the same answer
+    let mut again = warm.clone();
+    speciate_all_into(&m, lbs2.view(), totals.view(), &ids, Start::Warm, &mut again).unwrap();
+    assert!(
+        again.iterations.iter().all(|&it| it == 0),
+        "{:?}",
+        again.iterations
+    );
+    let mut polished = warm.clone();
+    speciate_all_into(
+        &m,
+        lbs2.view(),
+        totals.view(),
+        &ids,
+        Start::Extrapolated,
+        &mut polished,
+    )
+    .unwrap();
+    assert!(
+        polished.iterations.iter().all(|&it| it >= 1),
+        "{:?}",
+        polished.iterations
+    );
+    for (a, e) in polished.concentrations.iter().zip(&cold.concentrations) {
+        assert_relative_eq!(*a, *e, max_relative = 1e-9);
+    }
 }
 
 #[test]

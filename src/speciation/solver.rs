@@ -41,6 +41,12 @@ pub enum Start {
     /// From the free concentrations already in the batch (e.g. the previous iteration of a fit)
     /// when every component present in the sample has a positive value there; cold otherwise.
     Warm,
+    /// As [`Start::Warm`], from free concentrations the caller has already moved towards the
+    /// new constants (e.g. to first order along the last solve's derivatives), and with at
+    /// least one Newton step even when the start already meets the tolerance: the result is
+    /// then polished to the rounding level and does not depend on how good the prediction was
+    /// (a fit comparing costs at nearby points needs them smooth in the constants).
+    Extrapolated,
 }
 
 /// Whether [`speciate_all`] also returns ∂c/∂ log₁₀ β.
@@ -142,6 +148,8 @@ struct Workspace<'m> {
     /// w = H⁻¹ Aᵀ diag(c) ψ, and a copy of u.
     w: Vec<f64>,
     u_keep: Vec<f64>,
+    /// At least one Newton step from any start ([`Start::Extrapolated`]).
+    polish: bool,
 }
 
 impl<'m> Workspace<'m> {
@@ -176,6 +184,7 @@ impl<'m> Workspace<'m> {
             dlg: vec![0.0; nsp],
             w: vec![0.0; nc],
             u_keep: vec![0.0; nc],
+            polish: false,
         }
     }
 
@@ -461,7 +470,7 @@ impl<'m> Workspace<'m> {
         let mut it = 0;
         let mut converged = false;
         while it < budget {
-            if rel <= RESIDUAL_TOLERANCE {
+            if rel <= RESIDUAL_TOLERANCE && (it > 0 || !self.polish) {
                 converged = true;
                 break;
             }
@@ -1159,6 +1168,7 @@ pub fn speciate_all_into<S: AsRef<str>>(
     batch.residuals.resize(ns, 0.0);
     batch.ionic_strength.resize(ns, f64::NAN);
     let mut ws = Workspace::new(model);
+    ws.polish = start == Start::Extrapolated;
     let mut start_u = vec![0.0; nc];
     let mut dbuf = vec![0.0; if batch.derivatives.is_some() { nsp * nsp } else { 0 }];
     for (s, id) in sample_ids.iter().enumerate() {
@@ -1170,7 +1180,7 @@ pub fn speciate_all_into<S: AsRef<str>>(
             id,
         )?;
         let warm = match start {
-            Start::Warm => {
+            Start::Warm | Start::Extrapolated => {
                 for (u, &x) in start_u.iter_mut().zip(batch.free.row(s)) {
                     *u = if x > 0.0 { x.ln() } else { f64::NAN };
                 }
@@ -1380,6 +1390,7 @@ pub fn speciate_all_in_medium<S: AsRef<str>>(
     batch.residuals.resize(ns, 0.0);
     batch.ionic_strength.resize(ns, f64::NAN);
     let mut ws = Workspace::new(model);
+    ws.polish = start == Start::Extrapolated;
     for (z2, &z) in ws.z2.iter_mut().zip(&charges) {
         *z2 = f64::from(z * z);
     }
@@ -1414,7 +1425,7 @@ pub fn speciate_all_in_medium<S: AsRef<str>>(
             id,
         )?;
         let warm = match start {
-            Start::Warm => {
+            Start::Warm | Start::Extrapolated => {
                 for (u, &x) in start_u.iter_mut().zip(batch.free.row(s)) {
                     *u = if x > 0.0 { (x / f).ln() } else { f64::NAN };
                 }
@@ -1437,7 +1448,7 @@ pub fn speciate_all_in_medium<S: AsRef<str>>(
             }
             ws.ln_beta0.copy_from_slice(&ws.ln_beta);
             let start_i = match start {
-                Start::Warm => Some(batch.ionic_strength[s]),
+                Start::Warm | Start::Extrapolated => Some(batch.ionic_strength[s]),
                 Start::Cold => None,
             };
             let (it, rel, i) = ws.solve_with_activity(

@@ -40,7 +40,7 @@ pub(crate) struct VarproProblem<'a> {
     /// The known spectra on the data set's full wavelength grid (known × wavelengths), ε.
     pub known_values: Array2<f64>,
     /// Warm-start speciation buffer.
-    pub batch: Mutex<SpeciationBatch>,
+    pub batch: Mutex<WarmBatch>,
     /// Activity corrections and concentration scale of the speciation (ideal by default).
     pub medium: Medium,
     /// The last few speciations ([`SpeciationCache`]).
@@ -49,6 +49,51 @@ pub(crate) struct VarproProblem<'a> {
     /// equations at every point whose cost it accepts, which then reuse that speciation (false
     /// where only costs are wanted, e.g. when ranking starts).
     pub derivatives_with_cost: bool,
+}
+
+/// The speciation buffer of the last solve (the warm start of the next) and the log₁₀ β
+/// (samples × species) it was solved at.
+pub(crate) struct WarmBatch {
+    pub batch: SpeciationBatch,
+    pub log_betas: Option<Array2<f64>>,
+}
+
+impl WarmBatch {
+    pub fn new(batch: SpeciationBatch) -> Self {
+        Self {
+            batch,
+            log_betas: None,
+        }
+    }
+
+    /// Moves the free concentrations of the last solve to first order towards the log β
+    /// `to`: ln xⱼ += Σₖ (∂xⱼ/∂log βₖ)/xⱼ · Δlog βₖ, each change capped at ±2 (a factor e²),
+    /// so the Newton solve from there needs fewer steps (the solve checks its own convergence:
+    /// the prediction only moves the start). No-op when the last solve had no derivatives.
+    pub fn extrapolate_to(&mut self, to: &Array2<f64>) -> bool {
+        let (Some(from), Some(d)) = (self.log_betas.as_ref(), self.batch.derivatives.as_ref()) else {
+            return false;
+        };
+        if from.dim() != to.dim() || d.dim().0 != to.nrows() {
+            return false;
+        }
+        let nsp = to.ncols();
+        for (s, mut free) in self.batch.free.rows_mut().into_iter().enumerate() {
+            for (j, x) in free.iter_mut().enumerate() {
+                if !(*x > 0.0) {
+                    continue;
+                }
+                let dln: f64 = (0..nsp)
+                    .map(|k| d[[s, j, k]] * (to[[s, k]] - from[[s, k]]))
+                    .sum::<f64>()
+                    / *x;
+                if dln.is_finite() {
+                    *x *= dln.clamp(-2.0, 2.0).exp();
+                }
+            }
+        }
+        true
+    }
 }
 
 /// Concentrations (and ∂C/∂θ when computed) at the last few θ, newest first: the solver's
@@ -65,7 +110,7 @@ type CachedSpeciation = (Array1<f64>, Array2<f64>, Vec<Array2<f64>>);
 
 impl SpeciationCache {
     /// Entries kept.
-    const CAPACITY: usize = 8;
+    const CAPACITY: usize = 16;
 
     fn get(&self, theta: &Array1<f64>, derivatives: bool) -> Option<(Array2<f64>, Vec<Array2<f64>>)> {
         self.entries
@@ -152,16 +197,19 @@ impl<'a> VarproProblem<'a> {
             return Ok(hit);
         }
         let (lb, grad) = self.log_betas(theta, derivatives);
-        let mut batch = self.batch.lock().map_err(|_| -> ArgminError {
+        let mut warm_batch = self.batch.lock().map_err(|_| -> ArgminError {
             argmin::argmin_error!(PotentialBug, "speciation cache poisoned")
         })?;
+        let predicted = warm_batch.extrapolate_to(&lb);
+        warm_batch.log_betas = None;
+        let batch = &mut warm_batch.batch;
         let want = if derivatives {
             Derivatives::LogBeta
         } else {
             Derivatives::Skip
         };
         if batch.derivatives.is_some() != derivatives {
-            let warm = std::mem::replace(&mut *batch, SpeciationBatch::new(self.model, lb.nrows(), want));
+            let warm = std::mem::replace(batch, SpeciationBatch::new(self.model, lb.nrows(), want));
             batch.free.assign(&warm.free);
             batch.ionic_strength.clone_from(&warm.ionic_strength);
         }
@@ -172,9 +220,13 @@ impl<'a> VarproProblem<'a> {
             lb.view(),
             self.totals.view(),
             &self.sample_ids,
-            Start::Warm,
+            if predicted {
+                Start::Extrapolated
+            } else {
+                Start::Warm
+            },
             &self.medium,
-            &mut batch,
+            batch,
         );
         if warm.is_err() {
             batch.free.fill(0.0);
@@ -185,7 +237,7 @@ impl<'a> VarproProblem<'a> {
                 &self.sample_ids,
                 Start::Cold,
                 &self.medium,
-                &mut batch,
+                batch,
             ) {
                 batch.free.fill(0.0);
                 return Err(argmin::argmin_error!(InvalidParameter, e.to_string()));
@@ -207,7 +259,8 @@ impl<'a> VarproProblem<'a> {
                 dc.push(m);
             }
         }
-        drop(batch);
+        warm_batch.log_betas = Some(lb);
+        drop(warm_batch);
         if let Ok(mut recent) = self.recent.lock() {
             recent.put(theta, &c, &dc);
         }
@@ -318,10 +371,20 @@ impl<'a> VarproProblem<'a> {
         total
     }
 
-    /// The same problem restricted to the samples `rows` (their rows of G: the Gram matrix of a
-    /// subset of samples is the corresponding block of D̃D̃ᵀ, so the restriction is exact).
+    /// The same problem restricted to the samples `rows`: the Gram matrix of a subset of
+    /// samples is the corresponding block of D̃D̃ᵀ, so the restriction is exact. Their rows of G
+    /// (with H when spectra are known) are factored again, which leaves at most as many
+    /// columns as rows: every cost of the subset then works on a small square factor.
     pub fn restricted(&self, rows: &[usize]) -> VarproProblem<'a> {
         let model = self.model;
+        let selected = self.reduced.select(ndarray::Axis(0), rows);
+        let stacked = if self.known.is_empty() {
+            selected
+        } else {
+            ndarray::concatenate![ndarray::Axis(0), selected, self.known_reduced]
+        };
+        let g = super::pivoted_cholesky(stacked.dot(&stacked.t()));
+        let n = rows.len();
         VarproProblem {
             model,
             free: self.free,
@@ -331,12 +394,20 @@ impl<'a> VarproProblem<'a> {
             path_cm: self.path_cm.select(ndarray::Axis(0), rows),
             absorbing: self.absorbing.clone(),
             spectra_temperature: self.spectra_temperature,
-            reduced: self.reduced.select(ndarray::Axis(0), rows),
+            reduced: g.slice(ndarray::s![..n, ..]).to_owned(),
             known: self.known.clone(),
-            known_reduced: self.known_reduced.clone(),
+            known_reduced: if self.known.is_empty() {
+                Array2::zeros((0, 1))
+            } else {
+                g.slice(ndarray::s![n.., ..]).to_owned()
+            },
             known_values: self.known_values.clone(),
             medium: self.medium.select(rows),
-            batch: Mutex::new(SpeciationBatch::new(model, rows.len(), Derivatives::Skip)),
+            batch: Mutex::new(WarmBatch::new(SpeciationBatch::new(
+                model,
+                rows.len(),
+                Derivatives::Skip,
+            ))),
             recent: Mutex::new(SpeciationCache::default()),
             derivatives_with_cost: false,
         }
