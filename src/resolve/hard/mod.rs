@@ -970,7 +970,11 @@ fn build_problem<'a>(
         known: known.species,
         known_reduced,
         known_values: known.values,
-        batch: Mutex::new(SpeciationBatch::new(model, ns, Derivatives::LogBeta)),
+        batch: Mutex::new(problem::WarmBatch::new(SpeciationBatch::new(
+            model,
+            ns,
+            Derivatives::LogBeta,
+        ))),
         recent: Mutex::new(problem::SpeciationCache::default()),
         derivatives_with_cost: true,
         medium,
@@ -1443,6 +1447,34 @@ fn ceiling_violations(model: &ValidModel, fit: &HardFit) -> Vec<String> {
         .collect()
 }
 
+/// The `code`-th point of a mixed-radix grid (first digit fastest) in reflected order — the
+/// mixed-radix Gray code: a digit runs backwards while the (reflected) digits above it sum to an
+/// odd number, so consecutive points differ by one step in one coordinate. Returns the point's
+/// plain code (first digit fastest).
+///
+/// "Above" counts the digits already reflected (the Gray digits), not the counter's: a 2 × 2 × 2
+/// counter step (1, 1, 0) → (0, 0, 1) must land on the point next to (1, 1, 0)'s image.
+fn snake_code(code: usize, radices: &[usize]) -> usize {
+    let mut digits: Vec<usize> = Vec::with_capacity(radices.len());
+    let mut rest = code;
+    for &r in radices {
+        digits.push(rest % r.max(1));
+        rest /= r.max(1);
+    }
+    let mut above = 0;
+    for i in (0..digits.len()).rev() {
+        if above % 2 == 1 {
+            digits[i] = radices[i].max(1) - 1 - digits[i];
+        }
+        above += digits[i];
+    }
+    digits
+        .iter()
+        .zip(radices)
+        .rev()
+        .fold(0, |acc, (&d, &r)| acc * r.max(1) + d)
+}
+
 /// Bounds: the user's when given, otherwise the physically sensible range of each kind of
 /// parameter — log β within the range the speciation solver supports (−30 … 40), |ΔH°| ≤ 1000
 /// kJ/mol, |ΔCp°| ≤ 10⁵ J K⁻¹ mol⁻¹, |dΔCp°/dT| ≤ 10⁴ J K⁻² mol⁻¹.
@@ -1503,7 +1535,7 @@ fn start_points(
                     .map(|k| x0 - params.start_span + 2.0 * params.start_span * k as f64 / (g - 1) as f64)
                     .collect()
             } else if g > 1 && fp.name == "dh_ref" {
-                vec![x0, x0 - 40e3, x0 - 15e3, x0 + 15e3, x0 + 40e3]
+                vec![x0 - 40e3, x0 - 15e3, x0, x0 + 15e3, x0 + 40e3]
             } else {
                 vec![x0]
             }
@@ -1524,7 +1556,10 @@ fn start_points(
     };
     let mut candidates = vec![start0.clone()];
     if total <= MAX_START_POINTS {
-        candidates.extend((0..total).map(point));
+        // in reflected (snake) order, each point one grid step from the last: the speciation
+        // of each starts warm from a neighbour's
+        let radices: Vec<usize> = axes.iter().map(Vec::len).collect();
+        candidates.extend((0..total).map(|code| point(snake_code(code, &radices))));
     } else {
         let mut rng = crate::testing::rng(0x5EED);
         candidates.extend((0..MAX_START_POINTS).map(|_| point(rng.random_range(0..total))));
@@ -2055,6 +2090,104 @@ mod tests {
         let free2 = free_parameters(&two);
         let (p2, _, _) = build_problem(&sim2.set, &two, &free2, &HardFitParams::default()).unwrap();
         assert!(mirror_image(&p2, &ndarray::array![0.4, 12_000.0, -0.2, 35_000.0]).is_none());
+    }
+
+    #[test]
+    fn a_restricted_problem_costs_what_its_samples_cost_fitted_alone() {
+        use crate::resolve::lm::GaussNewtonProblem;
+        let model = two_complex_model(0.4, 12_000.0, -0.2, 35_000.0);
+        let mut plan = small_plan();
+        plan.noise = Noise::Absorbance { sd_au: 2e-3 };
+        plan.offset_sd_au = 5e-3;
+        let sim = simulate(&model, &plan).unwrap();
+        let free = free_parameters(&model);
+        let theta = ndarray::array![0.7, 5_000.0, 0.3, 20_000.0];
+        for known_spectra in [Vec::new(), vec![known_from(&sim, &model, 0)]] {
+            let params = HardFitParams {
+                baseline: Baseline::Offset,
+                known_spectra,
+                ..HardFitParams::default()
+            };
+            let (problem, _, _) = build_problem(&sim.set, &model, &free, &params).unwrap();
+            let rows = [0usize, 2, 3, 5, 7];
+            let ids: Vec<&str> = rows.iter().map(|&i| sim.set.samples()[i].id.as_str()).collect();
+            let alone = sim.set.select_samples(&ids).unwrap();
+            let (direct, _, _) = build_problem(&alone, &model, &free, &params).unwrap();
+            let restricted = problem.restricted(&rows);
+            assert!(restricted.reduced.ncols() <= rows.len() + restricted.known.len());
+            approx::assert_relative_eq!(
+                restricted.cost(&theta).unwrap(),
+                direct.cost(&theta).unwrap(),
+                max_relative = 1e-9
+            );
+        }
+    }
+
+    #[test]
+    fn the_first_order_prediction_of_the_free_concentrations_beats_the_last_solution() {
+        // From a speciation with derivatives at log β, the free concentrations moved along
+        // them to log β + Δ are much closer to the solution at log β + Δ than the old ones
+        // (first order: the error shrinks with Δ², the old one with Δ).
+        let model = two_complex_model(0.4, 12_000.0, -0.2, 35_000.0);
+        let sim = simulate(&model, &small_plan()).unwrap();
+        let free = free_parameters(&model);
+        let (problem, _, _) = build_problem(&sim.set, &model, &free, &HardFitParams::default()).unwrap();
+        let theta = ndarray::array![0.7, 5_000.0, 0.3, 20_000.0];
+        problem.speciate(&theta, true).unwrap();
+        let moved = ndarray::array![0.75, 5_500.0, 0.28, 20_500.0];
+        let (target, _) = problem.log_betas(&moved, false);
+        let (old_free, predicted) = {
+            let mut warm = problem.batch.lock().unwrap();
+            let old = warm.batch.free.clone();
+            assert!(warm.extrapolate_to(&target));
+            (old, warm.batch.free.clone())
+        };
+        // the exact answer at the new constants, from a fresh (cold) problem
+        let (fresh, _, _) = build_problem(&sim.set, &model, &free, &HardFitParams::default()).unwrap();
+        fresh.speciate(&moved, false).unwrap();
+        let exact = fresh.batch.lock().unwrap().batch.free.clone();
+        let worst = |a: &Array2<f64>| {
+            a.iter()
+                .zip(&exact)
+                .map(|(x, e)| (x / e).ln().abs())
+                .fold(0.0f64, f64::max)
+        };
+        let (before, after) = (worst(&old_free), worst(&predicted));
+        assert!(before > 1e-3, "the move must matter: {before}");
+        assert!(after < 0.1 * before, "ln error {before} → {after}");
+    }
+
+    #[test]
+    fn the_snake_order_visits_every_grid_point_once_in_single_steps() {
+        for radices in [vec![5usize, 5], vec![3, 4, 2], vec![7], vec![1, 3], vec![2, 1, 3]] {
+            let total: usize = radices.iter().product();
+            let digits = |mut c: usize| -> Vec<usize> {
+                radices
+                    .iter()
+                    .map(|&r| {
+                        let d = c % r;
+                        c /= r;
+                        d
+                    })
+                    .collect()
+            };
+            let codes: Vec<usize> = (0..total).map(|c| snake_code(c, &radices)).collect();
+            let mut sorted = codes.clone();
+            sorted.sort_unstable();
+            assert_eq!(
+                sorted,
+                (0..total).collect::<Vec<_>>(),
+                "{radices:?}: a permutation"
+            );
+            for w in codes.windows(2) {
+                let steps: usize = digits(w[0])
+                    .iter()
+                    .zip(digits(w[1]))
+                    .map(|(a, b)| a.abs_diff(b))
+                    .sum();
+                assert_eq!(steps, 1, "{radices:?}: {} → {}", w[0], w[1]);
+            }
+        }
     }
 
     #[test]
