@@ -1053,7 +1053,10 @@ pub fn fit_with_progress(
         .map(|fp| model.species()[fp.species].law.parameters()[fp.parameter].value)
         .collect();
     let (lower, upper) = bounds(&free, params);
-    let starts = start_points(problem.varpro(), &free, &start0, params, progress)?;
+    let (starts, subset) = start_points(problem.varpro(), &free, &start0, params, progress)?;
+    if let (Some(sub), Some(best)) = (&subset, starts.first()) {
+        sub.seed(problem.varpro(), best);
+    }
     let starts_tried = starts.len();
     let solver = LmParams {
         lower: lower.clone(),
@@ -1101,13 +1104,14 @@ pub fn fit_with_progress(
         let image = grid
             .and(mirror_image(problem.varpro(), &out.param))
             .filter(|x| signs(x) != best_signs);
+        // compared as the starts were ranked: on the scoring subset when there is one
         let cost = |x: &Array1<f64>| {
             use crate::resolve::lm::GaussNewtonProblem;
-            problem
-                .cost(x)
-                .ok()
-                .filter(|c| c.is_finite())
-                .unwrap_or(f64::INFINITY)
+            let c = match &subset {
+                Some(sub) => sub.problem.cost(x),
+                None => problem.cost(x),
+            };
+            c.ok().filter(|c| c.is_finite()).unwrap_or(f64::INFINITY)
         };
         let start = match (grid, image) {
             (Some(g), Some(i)) if cost(&i) <= cost(g) => Some((
@@ -1515,13 +1519,17 @@ const MAX_START_POINTS: usize = 2000;
 /// depend on log β at all. Grids larger than [`MAX_START_POINTS`] are subsampled with a fixed
 /// seed. Points are ranked by the cost (no Jacobian needed), on at most
 /// [`START_SCORING_SAMPLES`] spectra.
-fn start_points(
-    problem: &VarproProblem<'_>,
+///
+/// Also returns the scoring subset (with the rows of `problem` it holds) when one was used: the
+/// fit compares the mirror side's candidate starts on it too, and seeds the full problem's
+/// first speciation from its solution.
+fn start_points<'a>(
+    problem: &VarproProblem<'a>,
     free: &[FreeParameter],
     start0: &Array1<f64>,
     params: &HardFitParams,
     progress: &dyn Fn(FitProgress),
-) -> Result<Vec<Array1<f64>>, HardFitError> {
+) -> Result<(Vec<Array1<f64>>, Option<ScoringSubset<'a>>), HardFitError> {
     use crate::resolve::lm::GaussNewtonProblem;
     use rand::Rng;
     let g = params.start_grid;
@@ -1567,16 +1575,16 @@ fn start_points(
     // Scoring only ranks the starts: with many spectra, a spread subset of them (its rows of G,
     // exact for that subset) ranks them as well at a fraction of the cost.
     let ns = problem.temperatures_k.len();
-    let subset;
     let n_score =
         START_SCORING_SAMPLES.max(4 * problem.absorbing.len() * (problem.spectra_temperature.order() + 1));
-    let scorer = if ns > n_score {
+    let subset = (ns > n_score).then(|| {
         let rows: Vec<usize> = (0..n_score).map(|k| k * (ns - 1) / (n_score - 1)).collect();
-        subset = problem.restricted(&rows);
-        &subset
-    } else {
-        problem
-    };
+        ScoringSubset {
+            problem: problem.restricted(&rows),
+            rows,
+        }
+    });
+    let scorer = subset.as_ref().map_or(problem, |s| &s.problem);
     let total_points = candidates.len();
     let mut scored: Vec<(f64, Array1<f64>)> = candidates
         .into_iter()
@@ -1597,7 +1605,52 @@ fn start_points(
     }
     scored.sort_by(|a, b| a.0.total_cmp(&b.0));
     scored.dedup_by(|a, b| a.1 == b.1);
-    Ok(scored.into_iter().map(|(_, x)| x).collect())
+    Ok((scored.into_iter().map(|(_, x)| x).collect(), subset))
+}
+
+/// The spread subset of samples the starts were scored on ([`VarproProblem::restricted`]).
+struct ScoringSubset<'a> {
+    problem: VarproProblem<'a>,
+    /// Which samples of the full problem, in order.
+    rows: Vec<usize>,
+}
+
+impl ScoringSubset<'_> {
+    /// Seeds the free concentrations of `full`'s (fresh) speciation buffer from the subset's
+    /// solution at θ: each sample takes those of the nearest subset sample in the data's order
+    /// whose totals are within a factor of two of its own (a neighbour in temperature within
+    /// its series); samples without one keep a cold start. Only a start: every sample is still
+    /// solved to the tolerance.
+    fn seed(&self, full: &VarproProblem<'_>, theta: &Array1<f64>) {
+        use crate::resolve::lm::GaussNewtonProblem;
+        if self.problem.cost(theta).is_err() {
+            return;
+        }
+        let (Ok(sub), Ok(mut main)) = (self.problem.batch.lock(), full.batch.lock()) else {
+            return;
+        };
+        if main.log_betas.is_some() {
+            return; // already solved once: its own solution is the better start
+        }
+        let close = |i: usize, k: usize| {
+            full.totals
+                .row(i)
+                .iter()
+                .zip(self.problem.totals.row(k))
+                .all(|(&a, &b)| {
+                    (a == 0.0 && b == 0.0)
+                        || (a > 0.0 && b > 0.0 && (a / b).ln().abs() <= std::f64::consts::LN_2)
+                })
+        };
+        for i in 0..full.totals.nrows() {
+            let nearest = (0..self.rows.len())
+                .filter(|&k| close(i, k))
+                .min_by_key(|&k| self.rows[k].abs_diff(i));
+            if let Some(k) = nearest {
+                main.batch.free.row_mut(i).assign(&sub.batch.free.row(k));
+            }
+        }
+    }
 }
 
 #[allow(clippy::too_many_arguments)]
