@@ -115,3 +115,71 @@ pub fn small_plan(metal: &str, ligand: &str, complexes: &[&str]) -> crate::simul
         spectra,
     }
 }
+
+/// A Gaussian band (`centre_nm`, `width_nm`, `height` in L mol⁻¹ cm⁻¹) that does not shift with
+/// temperature.
+pub fn band(centre_nm: f64, width_nm: f64, height: f64) -> crate::simulate::Band {
+    crate::simulate::Band {
+        centre_nm,
+        width_nm,
+        height,
+        shift_nm_per_k: 0.0,
+    }
+}
+
+/// One series per ligand total, all with the same metal total, labelled `<ligand><total>`.
+pub fn ligand_series(
+    metal: &str,
+    metal_m: f64,
+    ligand: &str,
+    ligand_m: &[f64],
+) -> Vec<crate::simulate::SeriesPlan> {
+    ligand_m
+        .iter()
+        .map(|&x| crate::simulate::SeriesPlan {
+            label: format!("{ligand}{x}"),
+            totals_m: [(metal.to_string(), metal_m), (ligand.to_string(), x)].into(),
+        })
+        .collect()
+}
+
+/// Invented two-band pure spectra of M (weak), MX and MX2 with overlapping bands, shared by the
+/// integration tests of the stepwise M + X ⇌ MX, M + 2X ⇌ MX2 system.
+pub fn stepwise_spectra() -> Vec<crate::simulate::PureSpectrum> {
+    use crate::simulate::PureSpectrum;
+    vec![
+        PureSpectrum {
+            species: "M".into(),
+            bands: vec![band(420.0, 30.0, 6.0), band(700.0, 60.0, 2.5)],
+        },
+        PureSpectrum {
+            species: "MX".into(),
+            bands: vec![band(450.0, 35.0, 18.0), band(720.0, 55.0, 9.0)],
+        },
+        PureSpectrum {
+            species: "MX2".into(),
+            bands: vec![band(480.0, 40.0, 40.0), band(650.0, 45.0, 55.0)],
+        },
+    ]
+}
+
+/// The noise-free stepwise M/MX/MX2 plan of the activity-correction tests (library and command
+/// line): 10 temperatures 5–86 °C with thermal expansion, 350–800 nm every 5 nm, metal 10 mM,
+/// ligand 0.02, 0.1 and 0.4 M, [`stepwise_spectra`].
+pub fn stepwise_activity_plan() -> crate::simulate::SimulationPlan {
+    crate::simulate::SimulationPlan {
+        seed: 1,
+        first_nm: 350.0,
+        last_nm: 800.0,
+        step_nm: 5.0,
+        temperatures_c: (0..10).map(|k| 5.0 + 9.0 * f64::from(k)).collect(),
+        path_cm: 1.0,
+        preparation_temperature_c: 25.0,
+        thermal_expansion: true,
+        noise: crate::simulate::Noise::None,
+        offset_sd_au: 0.0,
+        slope_sd_au_per_100nm: 0.0,
+        series: ligand_series("M", 0.01, "X", &[0.02, 0.1, 0.4]),
+        spectra: stepwise_spectra(),
+    }
+}

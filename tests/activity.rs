@@ -4,9 +4,7 @@
 
 use approx::{assert_abs_diff_eq, assert_relative_eq};
 use isosbestic::resolve::hard::{self, ConcentrationBasis, HardFitError, HardFitParams};
-use isosbestic::simulate::{
-    Band, Noise, PureSpectrum, SeriesPlan, SimulationMedium, SimulationPlan, simulate_in_medium,
-};
+use isosbestic::simulate::{SimulationMedium, SimulationPlan, simulate_in_medium};
 use isosbestic::speciation::{
     Derivatives, EquilibriumModel, Medium, SpeciationBatch, SpeciationError, Start, ValidModel,
     speciate_all_in_medium, speciate_all_into,
@@ -392,46 +390,7 @@ law = {{ kind = "van_t_hoff", log_beta_ref = {{ value = {lb2} }}, dh_ref = {{ va
 }
 
 fn plan() -> SimulationPlan {
-    let band = |c: f64, w: f64, h: f64| Band {
-        centre_nm: c,
-        width_nm: w,
-        height: h,
-        shift_nm_per_k: 0.0,
-    };
-    SimulationPlan {
-        seed: 1,
-        first_nm: 350.0,
-        last_nm: 800.0,
-        step_nm: 5.0,
-        temperatures_c: (0..10).map(|k| 5.0 + 9.0 * f64::from(k)).collect(),
-        path_cm: 1.0,
-        preparation_temperature_c: 25.0,
-        thermal_expansion: true,
-        noise: Noise::None,
-        offset_sd_au: 0.0,
-        slope_sd_au_per_100nm: 0.0,
-        series: [0.02, 0.1, 0.4]
-            .iter()
-            .map(|&x| SeriesPlan {
-                label: format!("X{x}"),
-                totals_m: [("M".into(), 0.01), ("X".into(), x)].into(),
-            })
-            .collect(),
-        spectra: vec![
-            PureSpectrum {
-                species: "M".into(),
-                bands: vec![band(420.0, 30.0, 6.0), band(700.0, 60.0, 2.5)],
-            },
-            PureSpectrum {
-                species: "MX".into(),
-                bands: vec![band(450.0, 35.0, 18.0), band(720.0, 55.0, 9.0)],
-            },
-            PureSpectrum {
-                species: "MX2".into(),
-                bands: vec![band(480.0, 40.0, 40.0), band(650.0, 45.0, 55.0)],
-            },
-        ],
-    }
+    isosbestic::testing::stepwise_activity_plan()
 }
 
 const TRUTH: [(&str, &str, f64); 4] = [

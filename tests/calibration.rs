@@ -6,8 +6,9 @@ use isosbestic::resolve::classic::{
     ClassicInput, ClassicParams, TwoWavelengthAbsorptivities, classic_estimate,
 };
 use isosbestic::resolve::hard::{self, ConcentrationBasis, HardFitParams};
-use isosbestic::simulate::{Band, Noise, PureSpectrum, SeriesPlan, SimulationPlan, simulate};
+use isosbestic::simulate::{Noise, PureSpectrum, SeriesPlan, SimulationPlan, simulate};
 use isosbestic::speciation::{GAS_CONSTANT, ValidModel};
+use isosbestic::testing::band;
 use isosbestic::thermo::{SolventDensity, VanThoffParams};
 use rayon::prelude::*;
 
@@ -19,15 +20,6 @@ fn ml4(log_beta: f64, dh: f64) -> ValidModel {
 const LOG_BETA: f64 = 4.0;
 const DH: f64 = 30_000.0;
 const NOISE_AU: f64 = 1e-3;
-
-fn band(centre_nm: f64, width_nm: f64, height: f64) -> Band {
-    Band {
-        centre_nm,
-        width_nm,
-        height,
-        shift_nm_per_k: 0.0,
-    }
-}
 
 /// 20 temperatures × 61 wavelengths × 3 ligand levels; weak free metal (ε ≤ 8), strong ML4
 /// band overlapping it; thermal expansion in the simulation and in the fit.
@@ -128,27 +120,8 @@ fn stepwise_complexes_have_calibrated_intervals_too() {
         noise: Noise::Absorbance { sd_au: 2e-3 },
         offset_sd_au: 0.0,
         slope_sd_au_per_100nm: 0.0,
-        series: [0.3, 1.0, 3.0]
-            .iter()
-            .map(|&x| SeriesPlan {
-                label: format!("X{x}"),
-                totals_m: [("M".into(), 0.02), ("X".into(), x)].into(),
-            })
-            .collect(),
-        spectra: vec![
-            PureSpectrum {
-                species: "M".into(),
-                bands: vec![band(420.0, 30.0, 6.0), band(700.0, 60.0, 2.5)],
-            },
-            PureSpectrum {
-                species: "MX".into(),
-                bands: vec![band(450.0, 35.0, 18.0), band(720.0, 55.0, 9.0)],
-            },
-            PureSpectrum {
-                species: "MX2".into(),
-                bands: vec![band(480.0, 40.0, 40.0), band(650.0, 45.0, 55.0)],
-            },
-        ],
+        series: isosbestic::testing::ligand_series("M", 0.02, "X", &[0.3, 1.0, 3.0]),
+        spectra: isosbestic::testing::stepwise_spectra(),
     };
     let params = HardFitParams {
         concentrations: ConcentrationBasis::ThermalExpansion(SolventDensity::Water),

@@ -191,55 +191,15 @@ law = {{ kind = "van_t_hoff", log_beta_ref = {{ value = {lb2} }}, dh_ref = {{ va
 /// Noise-free data simulated with Davies activity coefficients and a 0.1 mol/L background
 /// electrolyte, written as spectra.csv and samples.csv into `dir`.
 fn simulate_with_activity(dir: &Path) {
-    use isosbestic::simulate::{
-        Band, Noise, PureSpectrum, SeriesPlan, SimulationMedium, SimulationPlan, simulate_in_medium,
-    };
+    use isosbestic::simulate::{SimulationMedium, simulate_in_medium};
     let truth = isosbestic::speciation::EquilibriumModel::from_toml_str(&charged_model_text(
         1.2, 12_000.0, 1.9, 30_000.0,
     ))
     .unwrap()
     .check()
     .unwrap();
-    let band = |c: f64, w: f64, h: f64| Band {
-        centre_nm: c,
-        width_nm: w,
-        height: h,
-        shift_nm_per_k: 0.0,
-    };
-    let plan = SimulationPlan {
-        seed: 1,
-        first_nm: 350.0,
-        last_nm: 800.0,
-        step_nm: 5.0,
-        temperatures_c: (0..10).map(|k| 5.0 + 9.0 * f64::from(k)).collect(),
-        path_cm: 1.0,
-        preparation_temperature_c: 25.0,
-        thermal_expansion: true,
-        noise: Noise::None,
-        offset_sd_au: 0.0,
-        slope_sd_au_per_100nm: 0.0,
-        series: [0.02, 0.1, 0.4]
-            .iter()
-            .map(|&x| SeriesPlan {
-                label: format!("X{x}"),
-                totals_m: [("M".into(), 0.01), ("X".into(), x)].into(),
-            })
-            .collect(),
-        spectra: vec![
-            PureSpectrum {
-                species: "M".into(),
-                bands: vec![band(420.0, 30.0, 6.0), band(700.0, 60.0, 2.5)],
-            },
-            PureSpectrum {
-                species: "MX".into(),
-                bands: vec![band(450.0, 35.0, 18.0), band(720.0, 55.0, 9.0)],
-            },
-            PureSpectrum {
-                species: "MX2".into(),
-                bands: vec![band(480.0, 40.0, 40.0), band(650.0, 45.0, 55.0)],
-            },
-        ],
-    };
+
+    let plan = isosbestic::testing::stepwise_activity_plan();
     let medium = SimulationMedium {
         activity: isosbestic::thermo::ActivityCorrection::Davies(isosbestic::thermo::Davies::default()),
         medium_ionic_strength: 0.1,

@@ -2,7 +2,7 @@
 //! The truth is the simulation's input (not an output of the fit), so these tests can fail.
 
 use isosbestic::resolve::hard::{self, Baseline, ConcentrationBasis, HardFitParams, SpectraTemperature};
-use isosbestic::simulate::{Band, Noise, PureSpectrum, SeriesPlan, SimulationPlan, simulate};
+use isosbestic::simulate::{Noise, PureSpectrum, SeriesPlan, SimulationPlan, simulate};
 use isosbestic::thermo::SolventDensity;
 
 /// M + X ⇌ MX and M + 2X ⇌ MX2, van 't Hoff laws; `truth` chooses the parameter values.
@@ -11,12 +11,6 @@ fn model(lb1: f64, dh1: f64, lb2: f64, dh2: f64) -> isosbestic::speciation::Vali
 }
 
 fn plan(noise: Noise, seed: u64) -> SimulationPlan {
-    let band = |c: f64, w: f64, h: f64| Band {
-        centre_nm: c,
-        width_nm: w,
-        height: h,
-        shift_nm_per_k: 0.0,
-    };
     SimulationPlan {
         seed,
         first_nm: 350.0,
@@ -29,27 +23,8 @@ fn plan(noise: Noise, seed: u64) -> SimulationPlan {
         noise,
         offset_sd_au: 0.0,
         slope_sd_au_per_100nm: 0.0,
-        series: [0.3, 1.0, 3.0]
-            .iter()
-            .map(|&x| SeriesPlan {
-                label: format!("X{x}"),
-                totals_m: [("M".into(), 0.02), ("X".into(), x)].into(),
-            })
-            .collect(),
-        spectra: vec![
-            PureSpectrum {
-                species: "M".into(),
-                bands: vec![band(420.0, 30.0, 6.0), band(700.0, 60.0, 2.5)],
-            },
-            PureSpectrum {
-                species: "MX".into(),
-                bands: vec![band(450.0, 35.0, 18.0), band(720.0, 55.0, 9.0)],
-            },
-            PureSpectrum {
-                species: "MX2".into(),
-                bands: vec![band(480.0, 40.0, 40.0), band(650.0, 45.0, 55.0)],
-            },
-        ],
+        series: isosbestic::testing::ligand_series("M", 0.02, "X", &[0.3, 1.0, 3.0]),
+        spectra: isosbestic::testing::stepwise_spectra(),
     }
 }
 
@@ -218,12 +193,7 @@ fn a_mirror_solution_is_found_and_the_weak_absorber_ceiling_decides() {
     // (ΔH° → −ΔH°, spectra swapped) and fit almost equally well (issue 4 §2). The truth has a
     // weakly absorbing metal (peak ε 5); declaring a ceiling of 20 must select the truth.
     let truth = one_to_one(0.0, 30_000.0, None);
-    let band = |c: f64, w: f64, h: f64| Band {
-        centre_nm: c,
-        width_nm: w,
-        height: h,
-        shift_nm_per_k: 0.0,
-    };
+    use isosbestic::testing::band;
     let mut p = plan(Noise::Absorbance { sd_au: 5e-4 }, 5);
     p.series = vec![SeriesPlan {
         label: "x".into(),

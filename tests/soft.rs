@@ -8,7 +8,7 @@ use isosbestic::resolve::soft::{
     SoftResolution, SoftTermination, Unimodality, band_boundaries, concentration_step, resolve,
     resolve_matrix,
 };
-use isosbestic::simulate::{Band, Noise, PureSpectrum, SeriesPlan, SimulationPlan, simulate};
+use isosbestic::simulate::{Noise, PureSpectrum, SeriesPlan, SimulationPlan, simulate};
 use isosbestic::speciation::EquilibriumModel;
 use ndarray::{Array1, Array2, ArrayView1, Axis};
 use proptest::prelude::*;
@@ -179,12 +179,7 @@ fn equilibrium_model() -> isosbestic::speciation::ValidModel {
 }
 
 fn equilibrium_plan(noise: Noise) -> SimulationPlan {
-    let band = |c: f64, w: f64, h: f64| Band {
-        centre_nm: c,
-        width_nm: w,
-        height: h,
-        shift_nm_per_k: 0.0,
-    };
+    use isosbestic::testing::band;
     SimulationPlan {
         seed: 3,
         first_nm: 350.0,

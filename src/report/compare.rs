@@ -1733,13 +1733,8 @@ mod tests {
     #[test]
     fn a_hard_fit_in_memory_is_compared_through_its_order_0_spectra() {
         use crate::resolve::hard::{self, HardFitParams, SpectraTemperature};
-        use crate::simulate::{Band, Noise, PureSpectrum, SeriesPlan, SimulationPlan, simulate};
-        let band = |c: f64, w: f64, h: f64| Band {
-            centre_nm: c,
-            width_nm: w,
-            height: h,
-            shift_nm_per_k: 0.0,
-        };
+        use crate::simulate::{Noise, PureSpectrum, SeriesPlan, SimulationPlan, simulate};
+        use crate::testing::band;
         let model = |lb1, dh1, lb2, dh2| {
             crate::testing::metal_ligand_model("M", "X", &[(1, lb1, dh1), (2, lb2, dh2)], None)
         };

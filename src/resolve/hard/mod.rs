@@ -1966,7 +1966,7 @@ pub(crate) fn speciation_conditions(
 #[cfg(test)]
 mod tests {
     use super::*;
-    use crate::simulate::{Band, Noise, PureSpectrum, SeriesPlan, SimulationPlan, simulate};
+    use crate::simulate::{Noise, PureSpectrum, SeriesPlan, SimulationPlan, simulate};
     use argmin::core::{Jacobian, Operator};
     use problem::sum_sq;
 
@@ -2010,12 +2010,7 @@ mod tests {
     }
 
     pub(crate) fn small_plan() -> SimulationPlan {
-        let band = |c: f64, w: f64, h: f64| Band {
-            centre_nm: c,
-            width_nm: w,
-            height: h,
-            shift_nm_per_k: 0.0,
-        };
+        use crate::testing::band;
         SimulationPlan {
             seed: 1,
             first_nm: 400.0,
