@@ -430,6 +430,27 @@ fn batch_results_equal_single_sample_results_and_warm_start_agrees() {
         "{:?}",
         again.iterations
     );
+    // derivatives for some constants only: those columns as before, the others zero
+    let mut some = SpeciationBatch::new(&m, ns, Derivatives::LogBeta);
+    let wanted: Vec<bool> = (0..m.n_species()).map(|k| k % 2 == 1).collect();
+    some.derivative_species = Some(wanted.clone());
+    speciate_all_into(&m, lbs.view(), totals.view(), &ids, Start::Cold, &mut some).unwrap();
+    let (all, part) = (
+        b.derivatives.as_ref().unwrap(),
+        some.derivatives.as_ref().unwrap(),
+    );
+    for ((s, i, k), v) in part.indexed_iter() {
+        let full = all[[s, i, k]];
+        if wanted[k] {
+            assert_abs_diff_eq!(*v, full, epsilon = 1e-12 * full.abs() + 1e-300);
+        } else {
+            assert_eq!(v.to_bits(), 0.0f64.to_bits(), "column {k} not wanted");
+        }
+    }
+    assert!(
+        all.iter().any(|v| *v != 0.0),
+        "the full derivatives are not all zero"
+    );
     let mut polished = warm.clone();
     speciate_all_into(
         &m,

@@ -93,6 +93,10 @@ pub struct SpeciationBatch {
     /// Self-consistent ionic strength I of each sample (on the speciation's scale: mol/L, or
     /// mol/kg on the molal scale) when activity corrections are on; NaN otherwise.
     pub ionic_strength: Vec<f64>,
+    /// The species k whose ∂c/∂ log₁₀ βₖ are wanted (one flag per species; `None`: all). The
+    /// other columns of [`SpeciationBatch::derivatives`] are left at zero — a fit needs only
+    /// the constants it varies.
+    pub derivative_species: Option<Vec<bool>>,
 }
 
 impl SpeciationBatch {
@@ -105,6 +109,7 @@ impl SpeciationBatch {
             iterations: vec![0; n_samples],
             residuals: vec![0.0; n_samples],
             ionic_strength: vec![f64::NAN; n_samples],
+            derivative_species: None,
             derivatives: match derivatives {
                 Derivatives::Skip => None,
                 Derivatives::LogBeta => Some(Array3::zeros((n_samples, nsp, nsp))),
@@ -150,6 +155,8 @@ struct Workspace<'m> {
     u_keep: Vec<f64>,
     /// At least one Newton step from any start ([`Start::Extrapolated`]).
     polish: bool,
+    /// Species whose derivative columns are wanted (empty: all).
+    wanted: Vec<bool>,
 }
 
 impl<'m> Workspace<'m> {
@@ -185,6 +192,7 @@ impl<'m> Workspace<'m> {
             w: vec![0.0; nc],
             u_keep: vec![0.0; nc],
             polish: false,
+            wanted: Vec::new(),
         }
     }
 
@@ -691,7 +699,7 @@ impl<'m> Workspace<'m> {
         }
         let mut rhs = std::mem::take(&mut self.rhs);
         for k in 0..nsp {
-            if !self.du_dln_beta(k, &mut rhs) {
+            if !self.wanted.get(k).copied().unwrap_or(true) || !self.du_dln_beta(k, &mut rhs) {
                 continue;
             }
             for i in 0..nsp {
@@ -913,7 +921,7 @@ impl Workspace<'_> {
         }
         let mut rhs = std::mem::take(&mut self.rhs);
         for k in 0..nsp {
-            if !self.du_dln_beta(k, &mut rhs) {
+            if !self.wanted.get(k).copied().unwrap_or(true) || !self.du_dln_beta(k, &mut rhs) {
                 continue;
             }
             let ck = self.c[k];
@@ -1169,6 +1177,7 @@ pub fn speciate_all_into<S: AsRef<str>>(
     batch.ionic_strength.resize(ns, f64::NAN);
     let mut ws = Workspace::new(model);
     ws.polish = start == Start::Extrapolated;
+    ws.wanted = batch.derivative_species.clone().unwrap_or_default();
     let mut start_u = vec![0.0; nc];
     let mut dbuf = vec![0.0; if batch.derivatives.is_some() { nsp * nsp } else { 0 }];
     for (s, id) in sample_ids.iter().enumerate() {
@@ -1391,6 +1400,7 @@ pub fn speciate_all_in_medium<S: AsRef<str>>(
     batch.ionic_strength.resize(ns, f64::NAN);
     let mut ws = Workspace::new(model);
     ws.polish = start == Start::Extrapolated;
+    ws.wanted = batch.derivative_species.clone().unwrap_or_default();
     for (z2, &z) in ws.z2.iter_mut().zip(&charges) {
         *z2 = f64::from(z * z);
     }

@@ -201,6 +201,11 @@ impl<'a> VarproProblem<'a> {
             argmin::argmin_error!(PotentialBug, "speciation cache poisoned")
         })?;
         let predicted = warm_batch.extrapolate_to(&lb);
+        // ∂C/∂ log β only for the species whose constants θ moves (the others stay zero and
+        // their Δlog β is zero in the prediction too)
+        let wanted: Vec<bool> = (0..self.model.n_species())
+            .map(|k| self.free.iter().any(|f| f.species == k))
+            .collect();
         warm_batch.log_betas = None;
         let batch = &mut warm_batch.batch;
         let want = if derivatives {
@@ -213,6 +218,7 @@ impl<'a> VarproProblem<'a> {
             batch.free.assign(&warm.free);
             batch.ionic_strength.clone_from(&warm.ionic_strength);
         }
+        batch.derivative_species = Some(wanted);
         // Warm start from the previous θ; if that fails, cold; if that fails too, clear the cache
         // so a failed trial point cannot poison later evaluations.
         let warm = speciate_all_in_medium(
