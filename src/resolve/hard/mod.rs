@@ -1622,11 +1622,13 @@ impl ScoringSubset<'_> {
     /// its series); samples without one keep a cold start. Only a start: every sample is still
     /// solved to the tolerance.
     fn seed(&self, full: &VarproProblem<'_>, theta: &Array1<f64>) {
-        use crate::resolve::lm::GaussNewtonProblem;
-        if self.problem.cost(theta).is_err() {
+        // C at θ (possibly from the subset's cache, so not read off its speciation buffer,
+        // which holds the last point solved); the free components are its first columns
+        let Ok((c, _)) = self.problem.speciate(theta, false) else {
             return;
-        }
-        let (Ok(sub), Ok(mut main)) = (self.problem.batch.lock(), full.batch.lock()) else {
+        };
+        let nc = full.model.n_components();
+        let Ok(mut main) = full.batch.lock() else {
             return;
         };
         if main.log_betas.is_some() {
@@ -1647,7 +1649,7 @@ impl ScoringSubset<'_> {
                 .filter(|&k| close(i, k))
                 .min_by_key(|&k| self.rows[k].abs_diff(i));
             if let Some(k) = nearest {
-                main.batch.free.row_mut(i).assign(&sub.batch.free.row(k));
+                main.batch.free.row_mut(i).assign(&c.slice(ndarray::s![k, ..nc]));
             }
         }
     }
@@ -2203,6 +2205,39 @@ mod tests {
         let (before, after) = (worst(&old_free), worst(&predicted));
         assert!(before > 1e-3, "the move must matter: {before}");
         assert!(after < 0.1 * before, "ln error {before} → {after}");
+    }
+
+    #[test]
+    fn the_scoring_subset_seeds_only_samples_of_its_own_composition_and_the_answer_is_unchanged() {
+        let model = two_complex_model(0.4, 12_000.0, -0.2, 35_000.0);
+        let sim = simulate(&model, &small_plan()).unwrap(); // samples 0–3: X 0.3 M, 4–7: X 3 M
+        let free = free_parameters(&model);
+        let params = HardFitParams::default();
+        let (problem, _, _) = build_problem(&sim.set, &model, &free, &params).unwrap();
+        let theta = ndarray::array![0.7, 5_000.0, 0.3, 20_000.0];
+        let rows = vec![0usize, 2];
+        let sub = ScoringSubset {
+            problem: problem.restricted(&rows),
+            rows,
+        };
+        sub.seed(&problem, &theta);
+        let (c_sub, _) = sub.problem.speciate(&theta, false).unwrap();
+        let seeded = problem.batch.lock().unwrap().batch.free.clone();
+        // nearest subset sample of the same composition: 0, 1 ← 0; 2, 3 ← 2
+        for (i, k) in [(0, 0), (1, 0), (2, 1), (3, 1)] {
+            assert_eq!(seeded.row(i), c_sub.slice(ndarray::s![k, ..2]), "sample {i}");
+        }
+        assert!(
+            seeded.slice(ndarray::s![4.., ..]).iter().all(|v| *v == 0.0),
+            "{seeded}"
+        );
+        // a start only: the solution equals a fresh problem's
+        let (c, _) = problem.speciate(&theta, true).unwrap();
+        let (fresh, _, _) = build_problem(&sim.set, &model, &free, &params).unwrap();
+        let (c0, _) = fresh.speciate(&theta, true).unwrap();
+        for (a, b) in c.iter().zip(&c0) {
+            approx::assert_relative_eq!(*a, *b, max_relative = 1e-10);
+        }
     }
 
     #[test]

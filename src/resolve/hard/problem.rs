@@ -69,7 +69,8 @@ impl WarmBatch {
     /// Moves the free concentrations of the last solve to first order towards the log β
     /// `to`: ln xⱼ += Σₖ (∂xⱼ/∂log βₖ)/xⱼ · Δlog βₖ, each change capped at ±2 (a factor e²),
     /// so the Newton solve from there needs fewer steps (the solve checks its own convergence:
-    /// the prediction only moves the start). No-op when the last solve had no derivatives.
+    /// the prediction only moves the start). Returns whether it did: not when the last solve
+    /// had no derivatives or a different shape.
     pub fn extrapolate_to(&mut self, to: &Array2<f64>) -> bool {
         let (Some(from), Some(d)) = (self.log_betas.as_ref(), self.batch.derivatives.as_ref()) else {
             return false;
@@ -219,8 +220,9 @@ impl<'a> VarproProblem<'a> {
             batch.ionic_strength.clone_from(&warm.ionic_strength);
         }
         batch.derivative_species = Some(wanted);
-        // Warm start from the previous θ; if that fails, cold; if that fails too, clear the cache
-        // so a failed trial point cannot poison later evaluations.
+        // Warm start from the previous θ (moved to first order when its derivatives are there);
+        // if that fails, cold; if that fails too, clear the cache so a failed trial point cannot
+        // poison later evaluations.
         let warm = speciate_all_in_medium(
             self.model,
             lb.view(),
