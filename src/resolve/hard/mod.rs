@@ -2011,6 +2011,14 @@ mod tests {
         crate::testing::metal_ligand_model("M", "X", &[(1, lb1, dh1), (2, lb2, dh2)], None)
     }
 
+    /// [`small_plan`] with noise 2e-3 AU and per-spectrum offsets (sd 5e-3 AU), simulated.
+    fn noisy_with_offsets(model: &ValidModel) -> crate::simulate::Simulation {
+        let mut plan = small_plan();
+        plan.noise = Noise::Absorbance { sd_au: 2e-3 };
+        plan.offset_sd_au = 5e-3;
+        simulate(model, &plan).unwrap()
+    }
+
     pub(crate) fn small_plan() -> SimulationPlan {
         use crate::testing::band;
         SimulationPlan {
@@ -2146,10 +2154,7 @@ mod tests {
     fn a_restricted_problem_costs_what_its_samples_cost_fitted_alone() {
         use crate::resolve::lm::GaussNewtonProblem;
         let model = two_complex_model(0.4, 12_000.0, -0.2, 35_000.0);
-        let mut plan = small_plan();
-        plan.noise = Noise::Absorbance { sd_au: 2e-3 };
-        plan.offset_sd_au = 5e-3;
-        let sim = simulate(&model, &plan).unwrap();
+        let sim = noisy_with_offsets(&model);
         let free = free_parameters(&model);
         let theta = ndarray::array![0.7, 5_000.0, 0.3, 20_000.0];
         for known_spectra in [Vec::new(), vec![known_from(&sim, &model, 0)]] {
@@ -2300,10 +2305,7 @@ mod tests {
     fn the_normal_equations_equal_those_formed_from_the_explicit_jacobian() {
         use crate::resolve::lm::GaussNewtonProblem;
         let model = two_complex_model(0.4, 12_000.0, -0.2, 35_000.0);
-        let mut plan = small_plan();
-        plan.noise = Noise::Absorbance { sd_au: 2e-3 };
-        plan.offset_sd_au = 5e-3;
-        let sim = simulate(&model, &plan).unwrap();
+        let sim = noisy_with_offsets(&model);
         let free = free_parameters(&model);
         for order in [0usize, 1] {
             let params = HardFitParams {
@@ -2356,10 +2358,7 @@ mod tests {
     fn with_a_known_spectrum_the_jacobian_and_normal_equations_match_finite_differences() {
         use crate::resolve::lm::GaussNewtonProblem;
         let model = two_complex_model(0.4, 12_000.0, -0.2, 35_000.0);
-        let mut plan = small_plan();
-        plan.noise = Noise::Absorbance { sd_au: 2e-3 };
-        plan.offset_sd_au = 5e-3;
-        let sim = simulate(&model, &plan).unwrap();
+        let sim = noisy_with_offsets(&model);
         let free = free_parameters(&model);
         let params = HardFitParams {
             baseline: Baseline::Offset,
