@@ -575,5 +575,8 @@ impl Jacobian for &VarproProblem<'_> {
 
 /// Sum of squares of a matrix.
 pub(crate) fn sum_sq(m: ArrayView2<f64>) -> f64 {
-    m.iter().map(|v| v * v).sum()
+    match m.as_slice() {
+        Some(flat) => super::small_svd::dot(flat, flat),
+        None => m.iter().map(|v| v * v).sum(),
+    }
 }

@@ -20,6 +20,27 @@ pub(super) struct SmallSvd {
     pub sigma: Vec<f64>,
 }
 
+/// aᵀb with eight partial sums: a single running sum is one long chain of dependent additions
+/// (the sweeps' dot products were most of the time of an SVD); the partial sums let the
+/// processor overlap them. Rounding differs from the sequential sum only in the order of the
+/// additions.
+pub(super) fn dot(a: &[f64], b: &[f64]) -> f64 {
+    let mut acc = [0.0f64; 8];
+    let (ca, cb) = (a.chunks_exact(8), b.chunks_exact(8));
+    let tail: f64 = ca
+        .remainder()
+        .iter()
+        .zip(cb.remainder())
+        .map(|(x, y)| x * y)
+        .sum();
+    for (x, y) in ca.zip(cb) {
+        for i in 0..8 {
+            acc[i] += x[i] * y[i];
+        }
+    }
+    ((acc[0] + acc[1]) + (acc[2] + acc[3])) + ((acc[4] + acc[5]) + (acc[6] + acc[7])) + tail
+}
+
 impl SmallSvd {
     /// From Aᵀ (k × n, row-major), consumed.
     pub fn of_transposed(mut at: Vec<f64>, k: usize, n: usize) -> Self {
@@ -27,7 +48,6 @@ impl SmallSvd {
         for p in 0..k {
             v[p * k + p] = 1.0;
         }
-        let dot = |a: &[f64], b: &[f64]| a.iter().zip(b).map(|(x, y)| x * y).sum::<f64>();
         let rotate = |m: &mut [f64], len: usize, p: usize, q: usize, c: f64, s: f64| {
             let (head, tail) = m.split_at_mut(q * len);
             let (rp, rq) = (&mut head[p * len..(p + 1) * len], &mut tail[..len]);
@@ -97,10 +117,7 @@ impl SmallSvd {
 
     /// Uᵀ·z (rank).
     pub fn ut_dot(&self, z: &[f64]) -> Vec<f64> {
-        self.ut
-            .chunks_exact(self.n)
-            .map(|u| u.iter().zip(z).map(|(a, b)| a * b).sum())
-            .collect()
+        self.ut.chunks_exact(self.n).map(|u| dot(u, z)).collect()
     }
 
     /// z − U·(Uᵀz), in place: the part of z outside the range.
