@@ -198,15 +198,16 @@ impl LevenbergMarquardt {
         self.termination
     }
 
-    fn project(&self, x: &mut Array1<f64>) {
+    /// Clips x onto the bounds; true when some coordinate was moved.
+    fn project(&self, x: &mut Array1<f64>) -> bool {
+        let mut moved = false;
         for (i, v) in x.iter_mut().enumerate() {
-            if let Some(&lo) = self.params.lower.get(i) {
-                *v = v.max(lo);
-            }
-            if let Some(&hi) = self.params.upper.get(i) {
-                *v = v.min(hi);
-            }
+            let inside = self.params.lower.get(i).map_or(*v, |&lo| v.max(lo));
+            let inside = self.params.upper.get(i).map_or(inside, |&hi| inside.min(hi));
+            moved |= inside.to_bits() != v.to_bits(); // clipped: the value itself changed
+            *v = inside;
         }
+        moved
     }
 }
 
@@ -283,9 +284,7 @@ impl<O: GaussNewtonProblem> Solver<O, LmState> for LevenbergMarquardt {
                 }
             };
             let mut trial = &x + &step;
-            let free_step = trial.clone();
-            self.project(&mut trial);
-            let on_bound = trial != free_step;
+            let on_bound = self.project(&mut trial);
             let step = &trial - &x;
             let xnorm = x.dot(&x).sqrt();
             let snorm = step.dot(&step).sqrt();

@@ -1790,8 +1790,8 @@ fn summarise(
         None => (
             (Array2::zeros((0, 0)), Array2::zeros((0, 0))),
             Some(PendingSpectra {
-                pinv: proj.pinv.clone(),
-                x: proj.x.clone(),
+                pinv: proj.pinv,
+                x: proj.x,
                 c: c.clone(),
             }),
         ),
