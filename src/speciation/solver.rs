@@ -153,6 +153,12 @@ struct Workspace<'m> {
     /// w = H⁻¹ Aᵀ diag(c) ψ, and a copy of u.
     w: Vec<f64>,
     u_keep: Vec<f64>,
+    /// H⁻¹ (entries 00, 01, 11) when [`Workspace::factor_jacobian`] took the closed form for two
+    /// active components; `None` when `l`/`d` hold the general factor.
+    inverse_2x2: Option<[f64; 3]>,
+    /// Two components: (i, k, (aᵢ₀aₖ₁ − aᵢ₁aₖ₀)²) for every pair of species i < k with a
+    /// non-zero minor, for det H by Cauchy–Binet.
+    minors_2x2: Vec<(usize, usize, f64)>,
     /// At least one Newton step from any start ([`Start::Extrapolated`]).
     polish: bool,
     /// Species whose derivative columns are wanted (empty: all).
@@ -191,6 +197,17 @@ impl<'m> Workspace<'m> {
             dlg: vec![0.0; nsp],
             w: vec![0.0; nc],
             u_keep: vec![0.0; nc],
+            inverse_2x2: None,
+            minors_2x2: if nc == 2 {
+                let a = model.stoichiometry();
+                (0..nsp)
+                    .flat_map(|i| (i + 1..nsp).map(move |k| (i, k)))
+                    .map(|(i, k)| (i, k, (a[2 * i] * a[2 * k + 1] - a[2 * i + 1] * a[2 * k]).powi(2)))
+                    .filter(|&(_, _, m2)| m2 > 0.0)
+                    .collect()
+            } else {
+                Vec::new()
+            },
             polish: false,
             wanted: Vec::new(),
         }
@@ -303,12 +320,13 @@ impl<'m> Workspace<'m> {
     /// H = Aᵀ diag(c) A (identity rows for absent components), factorised with Jacobi scaling
     /// into `l`/`d`. Returns false when not positive definite even after regularisation.
     ///
-    /// Two active components (a metal and a ligand: the common case) take the same
-    /// factorisation written out ([`Workspace::factor_2x2`]).
+    /// Two active components (a metal and a ligand: the common case) take H⁻¹ in closed form
+    /// ([`Workspace::factor_2x2`]) when it is well conditioned.
     fn factor_jacobian(&mut self, c: &[f64]) -> bool {
         if self.nc == 2 && self.active_c[0] && self.active_c[1] && self.factor_2x2(c) {
             return true;
         }
+        self.inverse_2x2 = None;
         let nc = self.nc;
         for j in 0..nc {
             for k in 0..=j {
@@ -345,9 +363,12 @@ impl<'m> Workspace<'m> {
         false
     }
 
-    /// The general path's scaled Cholesky (μ = 0) written out for two active components: the
-    /// same operations in the same order, into the same `h`, `d` and `l`, without the loops and
-    /// bounds checks. False when a pivot fails (left to the regularised general path).
+    /// Two active components: H⁻¹ in closed form, H⁻¹ = [h₁₁ −h₀₁; −h₀₁ h₀₀]/det, one division
+    /// and no square roots (the scaled Cholesky's chain of square roots and divisions is what
+    /// the solver waits on most). Refused, for the regularised general path, where the scaled
+    /// factor would fail too: det ≤ 10⁻¹⁴·h₀₀h₁₁ (i.e. 1 − ρ² ≤ 10⁻¹⁴ with ρ the correlation
+    /// h₀₁/√(h₀₀h₁₁), exactly the scaled Cholesky's pivot test) or entries outside the normal
+    /// range. x = H⁻¹b then has the same error bound as the factored solve, ε·κ(H)·‖x‖.
     fn factor_2x2(&mut self, c: &[f64]) -> bool {
         let (mut h00, mut h01, mut h11) = (0.0, 0.0, 0.0);
         for (row, &ci) in self.a.chunks_exact(2).zip(c) {
@@ -355,40 +376,24 @@ impl<'m> Workspace<'m> {
             h01 += row[0] * row[1] * ci;
             h11 += row[1] * row[1] * ci;
         }
-        let scale = |h: f64| {
-            if h > 0.0 && h.is_finite() {
-                1.0 / h.sqrt()
-            } else {
-                1.0
-            }
-        };
-        let (d0, d1) = (scale(h00), scale(h11));
-        self.h.copy_from_slice(&[h00, h01, h01, h11]);
-        self.d.copy_from_slice(&[d0, d1]);
-        let s00 = d0 * h00 * d0;
-        if s00 <= 1e-14 || s00.is_nan() {
+        let q = h00 * h11;
+        // det H = Σ_{i<k} cᵢcₖ(aᵢ₀aₖ₁ − aᵢ₁aₖ₀)² (Cauchy–Binet): a sum of non-negative terms,
+        // accurate to a few ε where h₀₀h₁₁ − h₀₁² would cancel
+        let det: f64 = self.minors_2x2.iter().map(|&(i, k, m2)| m2 * c[i] * c[k]).sum();
+        if !(q.is_normal() && det.is_normal() && det > 1e-14 * q && h00 > 0.0) {
             return false;
         }
-        let l00 = s00.sqrt();
-        let l10 = d1 * h01 * d0 / l00;
-        let s11 = d1 * h11 * d1 - l10 * l10;
-        if s11 <= 1e-14 || s11.is_nan() {
-            return false;
-        }
-        self.l.copy_from_slice(&[l00, 0.0, l10, s11.sqrt()]);
+        let inv = 1.0 / det;
+        self.inverse_2x2 = Some([h11 * inv, -h01 * inv, h00 * inv]);
         true
     }
 
     /// Solves H x = b with the factor from [`Workspace::factor_jacobian`]; `x` overwrites `b`.
     fn solve_factored(&self, b: &mut [f64]) {
-        if let ([b0, b1], [l00, _, l10, l11], [d0, d1]) = (&mut *b, &self.l[..], &self.d[..]) {
-            // the loops below for n = 2, written out
-            let y0 = (*b0 * d0) / l00;
-            let y1 = (*b1 * d1 - l10 * y0) / l11;
-            let x1 = y1 / l11;
-            let x0 = (y0 - l10 * x1) / l00;
-            *b0 = x0 * d0;
-            *b1 = x1 * d1;
+        if let (Some([i00, i01, i11]), [b0, b1]) = (self.inverse_2x2, &mut *b) {
+            let (x0, x1) = (i00 * *b0 + i01 * *b1, i01 * *b0 + i11 * *b1);
+            *b0 = x0;
+            *b1 = x1;
             return;
         }
         let nc = self.nc;
@@ -1522,24 +1527,45 @@ mod tests {
     }
 
     #[test]
-    fn scaled_cholesky_solves_a_badly_scaled_spd_system() {
+    fn a_badly_scaled_two_component_system_is_solved_to_rounding() {
         let model = ml_model();
         let mut ws = Workspace::new(&model);
         ws.load(&model, [0.0, 0.0, 3.0], [1.0, 1.0], "s").unwrap();
-        // c spanning 40 decades
+        // c spanning 40 decades; species M (1,0), L (0,1), ML (1,1): H = [c₀+c₂, c₂; c₂, c₁+c₂],
+        // det H = c₀c₁ + c₀c₂ + c₁c₂, so by Cramer's rule (worked out by hand, no cancellation
+        // for b = (1, 2)): x₀ = (c₁ − c₂)/det, x₁ = (2c₀ + c₂)/det
         let c = [1e-30, 1.0, 1e10];
         assert!(ws.factor_jacobian(&c));
-        let h = ws.h.clone();
+        let det = c[0] * c[1] + c[0] * c[2] + c[1] * c[2];
+        let exact = [(c[1] - c[2]) / det, (2.0 * c[0] + c[2]) / det];
         let mut b = [1.0, 2.0];
         ws.solve_factored(&mut b);
-        let r0 = h[0] * b[0] + h[1] * b[1];
-        let r1 = h[2] * b[0] + h[3] * b[1];
-        assert_relative_eq!(r0, 1.0, max_relative = 1e-8);
-        assert_relative_eq!(r1, 2.0, max_relative = 1e-8);
+        assert_relative_eq!(b[0], exact[0], max_relative = 1e-14);
+        assert_relative_eq!(b[1], exact[1], max_relative = 1e-14);
+        // the general (scaled Cholesky) path on the same system: forward error ε·κ, κ ≈ 4e10
+        let mut h = [0.0; 4];
+        for j in 0..2 {
+            for k in 0..2 {
+                h[j * 2 + k] = (0..3)
+                    .map(|i| ws.a[i * 2 + j] * ws.a[i * 2 + k] * c[i])
+                    .sum::<f64>();
+            }
+        }
+        let d = [1.0 / h[0].sqrt(), 1.0 / h[3].sqrt()];
+        let mut general = Workspace::new(&model);
+        assert!(cholesky_scaled(&h, &d, 2, 0.0, &mut general.l));
+        general.d.copy_from_slice(&d);
+        let mut y = [1.0, 2.0];
+        general.solve_factored(&mut y);
+        assert_relative_eq!(y[0], exact[0], max_relative = 1e-5);
+        assert_relative_eq!(y[1], exact[1], max_relative = 1e-5);
     }
 
     #[test]
-    fn the_written_out_two_component_factor_is_the_general_one_bit_for_bit() {
+    fn the_closed_form_two_component_solve_agrees_with_the_general_factor() {
+        // Reference: the general path (H as the loops build it, Jacobi-scaled Cholesky) on the
+        // same H and right-hand sides; agreement to a few ε·κ(H) (standard perturbation bound
+        // of a backward-stable solve, common practice).
         let model = ml_model();
         let mut ws = Workspace::new(&model);
         ws.load(&model, [0.0, 0.0, 3.0], [1.0, 1.0], "s").unwrap();
@@ -1548,32 +1574,46 @@ mod tests {
             [0.3, 2e-3, 7e-5],
             [1.0, 1.0, 1.0],
             [5e-9, 0.1, 0.2],
+            [1e-3, 1e-3, 1e-12],
         ] {
             assert!(ws.factor_jacobian(&c));
-            // the general path: H and its scaling as the loops build them, then cholesky_scaled
+            assert!(ws.inverse_2x2.is_some(), "closed form taken at c = {c:?}");
             let (nc, nsp) = (2, 3);
             let mut h = vec![0.0; 4];
             for j in 0..nc {
                 for k in 0..nc {
-                    let mut s = 0.0;
                     for i in 0..nsp {
-                        s += ws.a[i * nc + j] * ws.a[i * nc + k] * c[i];
+                        h[j * nc + k] += ws.a[i * nc + j] * ws.a[i * nc + k] * c[i];
                     }
-                    h[j * nc + k] = s;
                 }
             }
             let d: Vec<f64> = (0..nc).map(|j| 1.0 / h[j * nc + j].sqrt()).collect();
             let mut l = vec![0.0; 4];
             assert!(cholesky_scaled(&h, &d, nc, 0.0, &mut l));
-            let bits = |v: &[f64]| v.iter().map(|x| x.to_bits()).collect::<Vec<_>>();
-            assert_eq!(bits(&ws.h), bits(&h), "H at c = {c:?}");
-            assert_eq!(bits(&ws.d), bits(&d), "scaling at c = {c:?}");
-            assert_eq!(
-                bits(&[ws.l[0], ws.l[2], ws.l[3]]),
-                bits(&[l[0], l[2], l[3]]),
-                "factor at c = {c:?}"
-            );
+            let mut general = Workspace::new(&model);
+            general.l.copy_from_slice(&l);
+            general.d.copy_from_slice(&d);
+            // κ of the scaled H = (1 + |ρ|)/(1 − |ρ|)
+            let rho = (h[1] / (h[0] * h[3]).sqrt()).abs();
+            let kappa = (1.0 + rho) / (1.0 - rho);
+            for rhs in [[1.0, 0.0], [0.0, 1.0], [0.3, -2.0]] {
+                let (mut x, mut y) = (rhs, rhs);
+                ws.solve_factored(&mut x);
+                general.solve_factored(&mut y);
+                for j in 0..2 {
+                    // compared in the scaled variables d⁻¹x, where the bound is uniform
+                    let scale = (0..2).map(|k| (y[k] / d[k]).abs()).fold(0.0, f64::max);
+                    let err = ((x[j] - y[j]) / d[j]).abs();
+                    assert!(
+                        err <= 64.0 * f64::EPSILON * kappa * scale,
+                        "c = {c:?}, rhs {rhs:?}: {x:?} vs {y:?}"
+                    );
+                }
+            }
         }
+        // a singular H (one species carrying both components only) falls back to the general,
+        // regularised path
+        assert!(!ws.factor_2x2(&[0.0, 0.0, 1.0]));
     }
 
     #[test]
