@@ -110,6 +110,10 @@ pub enum ConvergenceTest {
     StepSize,
     /// The gradient ‖Jᵀr‖∞ fell below `gradient_tolerance` (scaled by the cost).
     Gradient,
+    /// The Gauss–Newton decrement ½ gᵀ(JᵀJ)⁻¹g, the largest decrease of the cost the local
+    /// quadratic model allows, fell below `cost_tolerance` · cost: no step can gain more than an
+    /// accepted step that ends the run by [`ConvergenceTest::CostReduction`].
+    PredictedReduction,
 }
 
 /// Why the solver stopped.
@@ -261,6 +265,20 @@ impl<O: GaussNewtonProblem> Solver<O, LmState> for LevenbergMarquardt {
             self.termination = LmTermination::Converged(ConvergenceTest::Gradient);
             return Ok((keep(state, x, g, jtj), None));
         }
+        // The Gauss–Newton decrement: the undamped step's predicted gain, an upper bound on every
+        // damped or bound-cut step's. Below the gain that ends a run after an accepted step
+        // (`cost_tolerance` · cost) nothing is left to gain, so no trial cost is evaluated to
+        // find that out. Skipped when JᵀJ is singular (then the steps below decide).
+        let tolerance = self.params.cost_tolerance * cost.max(f64::MIN_POSITIVE);
+        if let Ok(newton) = jtj.solveh(&g) {
+            let decrement = 0.5 * g.dot(&newton);
+            if decrement.is_finite() && (0.0..=tolerance).contains(&decrement) {
+                self.termination = LmTermination::Converged(ConvergenceTest::PredictedReduction);
+                return Ok((keep(state, x, g, jtj), None));
+            }
+        }
+        // a rejected step's predicted gain below this ends the run too (rounding-level changes)
+        let negligible = 1e3 * tolerance;
         // Marquardt scaling, kept away from zero for columns that vanish.
         let mut diag: Array1<f64> = jtj.diag().mapv(|v| v.max(0.0).sqrt());
         let dmax = diag.iter().fold(0.0f64, |m, v| m.max(*v));
@@ -294,7 +312,7 @@ impl<O: GaussNewtonProblem> Solver<O, LmState> for LevenbergMarquardt {
                 let predicted = predicted_reduction(&step);
                 self.termination = if attempt == 0 {
                     LmTermination::Converged(ConvergenceTest::StepSize)
-                } else if predicted <= self.params.cost_tolerance * cost.max(f64::MIN_POSITIVE) * 1e3 {
+                } else if predicted <= negligible {
                     LmTermination::Converged(ConvergenceTest::CostReduction)
                 } else {
                     LmTermination::Stalled
@@ -335,7 +353,7 @@ impl<O: GaussNewtonProblem> Solver<O, LmState> for LevenbergMarquardt {
             // the prediction, so the same conclusion is reached here without the further cost
             // evaluations (near the minimum the actual change is rounding, often ≤ 0). Not for
             // a step cut by a bound: a shorter one may then predict, and make, more progress.
-            if !on_bound && predicted <= self.params.cost_tolerance * cost.max(f64::MIN_POSITIVE) * 1e3 {
+            if !on_bound && predicted <= negligible {
                 self.termination = LmTermination::Converged(ConvergenceTest::CostReduction);
                 return Ok((keep(state, x, g, jtj), None));
             }
@@ -570,6 +588,69 @@ mod tests {
             "{} cost evaluations",
             problem.costs.get()
         );
+    }
+
+    /// Linear residuals r = Aθ − b (a quadratic cost with a non-zero minimum), counting cost
+    /// evaluations.
+    struct LinearResiduals {
+        costs: std::cell::Cell<usize>,
+    }
+    impl LinearResiduals {
+        const A: [[f64; 2]; 3] = [[1.0, 0.5], [0.2, 3.0], [2.0, -1.0]];
+        const B: [f64; 3] = [1.0, -2.0, 0.5];
+        fn residual(t: &Array1<f64>) -> Array1<f64> {
+            Self::A
+                .iter()
+                .zip(Self::B)
+                .map(|(row, b)| row[0] * t[0] + row[1] * t[1] - b)
+                .collect()
+        }
+    }
+    impl GaussNewtonProblem for LinearResiduals {
+        fn cost(&self, t: &Array1<f64>) -> Result<f64, ArgminError> {
+            self.costs.set(self.costs.get() + 1);
+            let r = Self::residual(t);
+            Ok(0.5 * r.dot(&r))
+        }
+        fn normal_equations(&self, t: &Array1<f64>) -> Result<NormalEquations, ArgminError> {
+            let a = Array2::from_shape_fn((3, 2), |(i, j)| Self::A[i][j]);
+            let r = Self::residual(t);
+            Ok(NormalEquations {
+                cost: 0.5 * r.dot(&r),
+                gradient: a.t().dot(&r),
+                gauss_newton: a.t().dot(&a),
+            })
+        }
+    }
+
+    #[test]
+    fn a_negligible_gauss_newton_decrement_ends_the_run_without_another_trial() {
+        // On a quadratic cost the decrement ½gᵀ(JᵀJ)⁻¹g is exactly cost(θ) − min cost, so the
+        // test's promise can be checked: the run ends within cost_tolerance · cost of the
+        // minimum (normal equations solved by hand: AᵀA θ* = Aᵀb).
+        let problem = LinearResiduals {
+            costs: std::cell::Cell::new(0),
+        };
+        let params = LmParams::default();
+        let tol = params.cost_tolerance;
+        let out = minimise_normal_equations(&problem, ndarray::array![-5.0, 7.0], params).unwrap();
+        assert_eq!(
+            out.termination,
+            LmTermination::Converged(ConvergenceTest::PredictedReduction)
+        );
+        let a = Array2::from_shape_fn((3, 2), |(i, j)| LinearResiduals::A[i][j]);
+        let b = Array1::from(LinearResiduals::B.to_vec());
+        let best = a.t().dot(&a).solveh(&a.t().dot(&b)).unwrap();
+        let r = LinearResiduals::residual(&best);
+        let min_cost = 0.5 * r.dot(&r);
+        assert!(min_cost > 0.1, "a non-zero minimum ({min_cost})");
+        assert!(
+            out.cost - min_cost <= tol * out.cost,
+            "{} above {min_cost}",
+            out.cost
+        );
+        // one trial cost per iteration but the last, which stops on the decrement alone
+        assert_eq!(problem.costs.get() as u64 + 1, out.iterations);
     }
 
     #[test]
