@@ -367,14 +367,22 @@ impl<'a> VarproProblem<'a> {
     /// no cancellation against ‖Y‖²).
     pub fn residual_sum_of_squares(&self, p: &Projection, y: &Array2<f64>) -> f64 {
         let uty = p.u.t().dot(y);
-        let mut row = Array1::zeros(y.ncols());
+        let (Some(w), Some(ys)) = (uty.as_slice(), y.as_slice()) else {
+            let r = self.residual_matrix(p, y);
+            return r.iter().map(|v| v * v).sum();
+        };
+        let width = y.ncols();
+        let mut row = vec![0.0; width];
         let mut total = 0.0;
-        for (i, g) in y.rows().into_iter().enumerate() {
-            row.assign(&g);
-            for (a, w) in uty.rows().into_iter().enumerate() {
-                row.scaled_add(-p.u[[i, a]], &w);
+        for (i, g) in ys.chunks_exact(width.max(1)).enumerate() {
+            row.copy_from_slice(g);
+            for (a, wa) in w.chunks_exact(width.max(1)).enumerate() {
+                let coef = p.u[[i, a]];
+                for (r, &v) in row.iter_mut().zip(wa) {
+                    *r -= coef * v;
+                }
             }
-            total += row.dot(&row);
+            total += row.iter().map(|r| r * r).sum::<f64>();
         }
         total
     }
