@@ -382,7 +382,7 @@ impl<'a> VarproProblem<'a> {
                     *r -= coef * v;
                 }
             }
-            total += row.iter().map(|r| r * r).sum::<f64>();
+            total += super::small_svd::dot(&row, &row);
         }
         total
     }
