@@ -1553,20 +1553,26 @@ fn start_points<'a>(
         .iter()
         .try_fold(1usize, |acc, a| acc.checked_mul(a.len()))
         .unwrap_or(usize::MAX);
+    // Digit order of a grid code: ΔH° (and other non-log β) axes vary fastest. A ΔH° step
+    // moves each sample's log β by ΔΔH°·|1/T − 1/T_ref|/(R ln 10), a fraction of a unit over
+    // the usual temperature range, where a log β step moves every sample's by a whole unit
+    // (more Newton steps from the neighbour's solution).
+    let mut order: Vec<usize> = (0..axes.len()).collect();
+    order.sort_by_key(|&p| free[p].name.starts_with("log_beta"));
     let point = |mut code: usize| -> Array1<f64> {
-        axes.iter()
-            .map(|a| {
-                let v = a[code % a.len()];
-                code /= a.len();
-                v
-            })
-            .collect()
+        let mut x = start0.clone();
+        for &p in &order {
+            let a = &axes[p];
+            x[p] = a[code % a.len()];
+            code /= a.len();
+        }
+        x
     };
     let mut candidates = vec![start0.clone()];
     if total <= MAX_START_POINTS {
         // in reflected (snake) order, each point one grid step from the last: the speciation
         // of each starts warm from a neighbour's
-        let radices: Vec<usize> = axes.iter().map(Vec::len).collect();
+        let radices: Vec<usize> = order.iter().map(|&p| axes[p].len()).collect();
         candidates.extend((0..total).map(|code| point(snake_code(code, &radices))));
     } else {
         let mut rng = crate::testing::rng(0x5EED);
