@@ -148,9 +148,9 @@ pub use law::{
 };
 pub use model::{ComponentSpec, EquilibriumModel, Optics, Species, SpeciesRole, SpeciesSpec, ValidModel};
 pub use solver::{
-    Derivatives, IONIC_STRENGTH_TOLERANCE, Medium, RESIDUAL_TOLERANCE, SolveRoute, Speciation,
-    SpeciationBatch, Start, concentration_derivatives, speciate, speciate_all, speciate_all_in_medium,
-    speciate_all_into,
+    Derivatives, IONIC_STRENGTH_TOLERANCE, LOOSEST_TOLERANCE, Medium, RESIDUAL_TOLERANCE, SolveRoute,
+    Speciation, SpeciationBatch, Start, concentration_derivatives, speciate, speciate_all,
+    speciate_all_in_medium, speciate_all_into,
 };
 
 use thiserror::Error;
@@ -239,6 +239,16 @@ pub enum SpeciationError {
     MissingTotals {
         /// The components without a total.
         components: Vec<String>,
+    },
+    /// A batch's [`SpeciationBatch::tolerance`] outside the range the solver supports.
+    #[error(
+        "speciation tolerance {value} is outside [{}, {}]",
+        RESIDUAL_TOLERANCE,
+        LOOSEST_TOLERANCE
+    )]
+    InvalidTolerance {
+        /// The tolerance given.
+        value: f64,
     },
     /// An array has the wrong size.
     #[error("shape mismatch in {what}: expected {expected}, found {found}")]

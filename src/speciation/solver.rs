@@ -13,6 +13,14 @@ use std::f64::consts::LN_10;
 
 /// Convergence tolerance on the relative mass-balance residual (see [`Speciation::residual`]).
 pub const RESIDUAL_TOLERANCE: f64 = 1e-12;
+
+/// The loosest [`SpeciationBatch::tolerance`] accepted: concentrations to about 0.1 %, enough to
+/// rank candidate constants by cost.
+pub const LOOSEST_TOLERANCE: f64 = 1e-3;
+
+fn default_tolerance() -> f64 {
+    RESIDUAL_TOLERANCE
+}
 /// A residual below this is accepted when rounding stops further progress.
 const ROUNDING_FLOOR: f64 = 1e-10;
 const MAX_NEWTON: usize = 200;
@@ -97,6 +105,12 @@ pub struct SpeciationBatch {
     /// other columns of [`SpeciationBatch::derivatives`] are left at zero — a fit needs only
     /// the constants it varies.
     pub derivative_species: Option<Vec<bool>>,
+    /// The relative mass-balance residual at which a sample counts as solved: by default
+    /// [`RESIDUAL_TOLERANCE`] (rounding level); up to [`LOOSEST_TOLERANCE`] where a quick,
+    /// less precise answer serves (e.g. only ranking candidate constants by cost — Newton's
+    /// quadratic convergence makes the last step, from ~10⁻⁶ to rounding, the one saved).
+    #[serde(default = "default_tolerance")]
+    pub tolerance: f64,
 }
 
 impl SpeciationBatch {
@@ -110,6 +124,7 @@ impl SpeciationBatch {
             residuals: vec![0.0; n_samples],
             ionic_strength: vec![f64::NAN; n_samples],
             derivative_species: None,
+            tolerance: RESIDUAL_TOLERANCE,
             derivatives: match derivatives {
                 Derivatives::Skip => None,
                 Derivatives::LogBeta => Some(Array3::zeros((n_samples, nsp, nsp))),
@@ -159,6 +174,8 @@ struct Workspace<'m> {
     /// Two components: (i, k, (aᵢ₀aₖ₁ − aᵢ₁aₖ₀)²) for every pair of species i < k with a
     /// non-zero minor, for det H by Cauchy–Binet.
     minors_2x2: Vec<(usize, usize, f64)>,
+    /// Relative mass-balance residual at which Newton stops ([`SpeciationBatch::tolerance`]).
+    tolerance: f64,
     /// At least one Newton step from any start ([`Start::Extrapolated`]).
     polish: bool,
     /// Species whose derivative columns are wanted (empty: all).
@@ -198,6 +215,7 @@ impl<'m> Workspace<'m> {
             w: vec![0.0; nc],
             u_keep: vec![0.0; nc],
             inverse_2x2: None,
+            tolerance: RESIDUAL_TOLERANCE,
             minors_2x2: if nc == 2 {
                 let a = model.stoichiometry();
                 (0..nsp)
@@ -483,7 +501,7 @@ impl<'m> Workspace<'m> {
         let mut it = 0;
         let mut converged = false;
         while it < budget {
-            if rel <= RESIDUAL_TOLERANCE && (it > 0 || !self.polish) {
+            if rel <= self.tolerance && (it > 0 || !self.polish) {
                 converged = true;
                 break;
             }
@@ -1008,6 +1026,11 @@ fn check_shapes(
     if let Some(d) = &batch.derivatives {
         check_len("batch derivatives", ns * nsp * nsp, d.len())?;
     }
+    if !(RESIDUAL_TOLERANCE..=LOOSEST_TOLERANCE).contains(&batch.tolerance) {
+        return Err(SpeciationError::InvalidTolerance {
+            value: batch.tolerance,
+        });
+    }
     Ok((ns, nsp, nc))
 }
 
@@ -1193,6 +1216,7 @@ pub fn speciate_all_into<S: AsRef<str>>(
     batch.ionic_strength.resize(ns, f64::NAN);
     let mut ws = Workspace::new(model);
     ws.polish = start == Start::Extrapolated;
+    ws.tolerance = batch.tolerance;
     ws.wanted = batch.derivative_species.clone().unwrap_or_default();
     let mut start_u = vec![0.0; nc];
     let mut dbuf = vec![0.0; if batch.derivatives.is_some() { nsp * nsp } else { 0 }];
@@ -1416,6 +1440,7 @@ pub fn speciate_all_in_medium<S: AsRef<str>>(
     batch.ionic_strength.resize(ns, f64::NAN);
     let mut ws = Workspace::new(model);
     ws.polish = start == Start::Extrapolated;
+    ws.tolerance = batch.tolerance;
     ws.wanted = batch.derivative_species.clone().unwrap_or_default();
     for (z2, &z) in ws.z2.iter_mut().zip(&charges) {
         *z2 = f64::from(z * z);
@@ -1677,5 +1702,50 @@ mod tests {
         ws.u = vec![300.0, -300.0];
         let (ok, _, rel) = ws.newton(MAX_NEWTON);
         assert!(ok, "residual {rel}");
+    }
+
+    #[test]
+    fn a_looser_tolerance_is_met_in_fewer_steps_and_an_unsupported_one_refused() {
+        let model = ml_model();
+        let n = 12;
+        let log_betas =
+            Array2::from_shape_fn((n, 3), |(i, k)| if k == 2 { 1.0 + 0.5 * i as f64 } else { 0.0 });
+        let totals =
+            Array2::from_shape_fn((n, 2), |(i, j)| if j == 0 { 1e-3 } else { 1e-3 * (1 + i) as f64 });
+        let ids: Vec<String> = (0..n).map(|i| format!("s{i}")).collect();
+        let solve = |tolerance: f64| {
+            let mut batch = SpeciationBatch {
+                tolerance,
+                ..SpeciationBatch::new(&model, n, Derivatives::Skip)
+            };
+            speciate_all_into(
+                &model,
+                log_betas.view(),
+                totals.view(),
+                &ids,
+                Start::Cold,
+                &mut batch,
+            )
+            .map(|()| batch)
+        };
+        let tight = solve(RESIDUAL_TOLERANCE).unwrap();
+        let loose = solve(1e-6).unwrap();
+        assert!(loose.residuals.iter().all(|&r| r <= 1e-6));
+        let steps = |b: &SpeciationBatch| b.iterations.iter().sum::<usize>();
+        assert!(
+            steps(&loose) < steps(&tight),
+            "{} vs {}",
+            steps(&loose),
+            steps(&tight)
+        );
+        for (a, b) in loose.concentrations.iter().zip(&tight.concentrations) {
+            assert!((a - b).abs() <= 1e-5 * b.abs().max(1e-12), "{a} vs {b}");
+        }
+        for bad in [1e-13, 1e-2, f64::NAN] {
+            assert!(
+                matches!(solve(bad), Err(SpeciationError::InvalidTolerance { .. })),
+                "{bad}"
+            );
+        }
     }
 }

@@ -2176,11 +2176,13 @@ mod tests {
             let (direct, _, _) = build_problem(&alone, &model, &free, &params).unwrap();
             let restricted = problem.restricted(&rows);
             assert!(restricted.reduced.ncols() <= rows.len() + restricted.known.len());
-            approx::assert_relative_eq!(
-                restricted.cost(&theta).unwrap(),
-                direct.cost(&theta).unwrap(),
-                max_relative = 1e-9
-            );
+            // solved to the scoring tolerance: close enough to rank starts
+            let exact = direct.cost(&theta).unwrap();
+            approx::assert_relative_eq!(restricted.cost(&theta).unwrap(), exact, max_relative = 1e-4);
+            // solved to rounding, the reduction itself is exact
+            *restricted.recent.lock().unwrap() = problem::SpeciationCache::default();
+            restricted.batch.lock().unwrap().batch.tolerance = crate::speciation::RESIDUAL_TOLERANCE;
+            approx::assert_relative_eq!(restricted.cost(&theta).unwrap(), exact, max_relative = 1e-9);
         }
     }
 

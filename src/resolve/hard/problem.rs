@@ -12,6 +12,11 @@ use ndarray::{Array1, Array2, ArrayView2};
 use std::borrow::Cow;
 use std::sync::Mutex;
 
+/// Speciation tolerance of a [`VarproProblem::restricted`] problem (relative mass-balance
+/// residual): concentrations to ~10⁻⁶, which moves a cost by far less than the differences
+/// between the candidate starts it ranks, and saves the last Newton step of most samples.
+pub const SCORING_TOLERANCE: f64 = 1e-6;
+
 /// Everything fixed during a fit, and a warm-start speciation cache.
 pub(crate) struct VarproProblem<'a> {
     pub model: &'a ValidModel,
@@ -387,7 +392,8 @@ impl<'a> VarproProblem<'a> {
         total
     }
 
-    /// The same problem restricted to the samples `rows`: the Gram matrix of a subset of
+    /// The same problem restricted to the samples `rows`, solved to [`SCORING_TOLERANCE`] (it
+    /// only ranks candidate parameters): the Gram matrix of a subset of
     /// samples is the corresponding block of D̃D̃ᵀ, so the restriction is exact. Their rows of G
     /// (with H when spectra are known) are factored again, which leaves at most as many
     /// columns as rows: every cost of the subset then works on a small square factor.
@@ -419,11 +425,10 @@ impl<'a> VarproProblem<'a> {
             },
             known_values: self.known_values.clone(),
             medium: self.medium.select(rows),
-            batch: Mutex::new(WarmBatch::new(SpeciationBatch::new(
-                model,
-                rows.len(),
-                Derivatives::Skip,
-            ))),
+            batch: Mutex::new(WarmBatch::new(SpeciationBatch {
+                tolerance: SCORING_TOLERANCE,
+                ..SpeciationBatch::new(model, rows.len(), Derivatives::Skip)
+            })),
             recent: Mutex::new(SpeciationCache::default()),
             derivatives_with_cost: false,
         }
