@@ -662,7 +662,8 @@ pub(super) enum FitProblem<'a> {
 }
 
 impl<'a> FitProblem<'a> {
-    /// Wraps the reduced problem, switching to the columnwise path when `params` ask for it.
+    /// Wraps the reduced problem, switching to the columnwise path when `params` ask for it or
+    /// every wavelength has a masked point in some sample.
     /// `set` must be the data set the reduced problem was built from; the columnwise path uses
     /// all of its wavelengths, masked points weighing nothing.
     ///
@@ -675,7 +676,8 @@ impl<'a> FitProblem<'a> {
         set: &crate::data::SpectraSet,
         params: &HardFitParams,
     ) -> Result<Self, HardFitError> {
-        if !requested(params) {
+        // (with every wavelength masked somewhere the reduced problem has nothing exact to fit)
+        if !requested(params) && !set.unmasked_wavelength_indices().is_empty() {
             return Ok(Self::Reduced(reduced));
         }
         check_settings(
@@ -1074,5 +1076,50 @@ mod tests {
         .err()
         .unwrap();
         assert!(e.to_string().contains(&sim.set.samples()[1].id), "{e}");
+    }
+
+    #[test]
+    fn a_sample_masked_at_every_wavelength_is_left_out_of_the_fit() {
+        // One sample saturated throughout: no wavelength is free of masked points, so the fit
+        // runs columnwise with that sample weighing nothing — the same least-squares problem as
+        // the data without it (reference: the reduced path on the set with the sample removed).
+        let model = model();
+        let sim = simulate(&model, &plan(Noise::Absorbance { sd_au: 1e-3 })).unwrap();
+        let mut set = sim.set.clone();
+        let mut mask = Array2::from_elem(set.absorbance().dim(), false);
+        mask.row_mut(2).fill(true);
+        set.set_mask(mask).unwrap();
+        let fitted = super::super::fit(&set, &model, &HardFitParams::default()).unwrap();
+        let ids: Vec<&str> = (0..set.n_samples())
+            .filter(|&i| i != 2)
+            .map(|i| set.samples()[i].id.as_str())
+            .collect();
+        let without = sim.set.select_samples(&ids).unwrap();
+        let reference = super::super::fit(&without, &model, &HardFitParams::default()).unwrap();
+        assert_eq!(fitted.n_data, without.absorbance().len());
+        for (a, b) in fitted.parameters.iter().zip(&reference.parameters) {
+            assert!(
+                (a.value - b.value).abs() <= 1e-6 * b.value.abs().max(1.0),
+                "{}: {} vs {}",
+                b.parameter.name,
+                a.value,
+                b.value
+            );
+            approx::assert_relative_eq!(a.standard_error, b.standard_error, max_relative = 1e-4);
+        }
+        // a baseline couples the wavelengths: refused, saying what to do
+        let e = super::super::fit(
+            &set,
+            &model,
+            &HardFitParams {
+                baseline: Baseline::Offset,
+                ..HardFitParams::default()
+            },
+        )
+        .unwrap_err();
+        assert!(
+            e.to_string().contains("leave out the samples masked throughout"),
+            "{e}"
+        );
     }
 }

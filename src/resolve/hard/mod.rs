@@ -912,13 +912,31 @@ fn build_problem<'a>(
     // the fit leaves out every wavelength at which any sample is masked.
     let used = set.unmasked_wavelength_indices();
     let masked = used.len() < set.n_wavelengths();
-    if used.is_empty() {
-        return Err(HardFitError::Settings(
-            "every wavelength has a masked point in some sample: nothing left to fit".into(),
-        ));
+    // Every wavelength masked somewhere (e.g. one sample saturated throughout): the fit runs on
+    // the columnwise path, where masked points weigh nothing, and the reduced problem (which
+    // then only ranks the starts) is built from the data with its masked points set to zero.
+    let every_wavelength_masked = used.is_empty();
+    if every_wavelength_masked && params.baseline != Baseline::None {
+        return Err(HardFitError::Settings(format!(
+            "every wavelength has a masked point in some sample, and baseline {:?} couples the \
+             wavelengths: leave out the samples masked throughout, or fit with baseline None",
+            params.baseline
+        )));
     }
     let selected;
-    let (d, wavelengths) = if masked {
+    let (d, wavelengths) = if every_wavelength_masked {
+        selected = (
+            Array2::from_shape_fn(set.absorbance().dim(), |(i, j)| {
+                if set.mask()[[i, j]] {
+                    0.0
+                } else {
+                    set.absorbance()[[i, j]]
+                }
+            }),
+            set.wavelengths_nm().clone(),
+        );
+        (&selected.0, &selected.1)
+    } else if masked {
         selected = (
             set.absorbance().select(ndarray::Axis(1), &used),
             set.wavelengths_nm().select(ndarray::Axis(0), &used),
@@ -935,7 +953,7 @@ fn build_problem<'a>(
     let (reduced, known_reduced) = if known.species.is_empty() {
         (reduce(d, q_w.as_ref())?, Array2::zeros((0, 1)))
     } else {
-        let e = if masked {
+        let e = if masked && !every_wavelength_masked {
             known.values.select(ndarray::Axis(1), &used)
         } else {
             known.values.clone()
