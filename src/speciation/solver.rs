@@ -21,6 +21,7 @@ pub const LOOSEST_TOLERANCE: f64 = 1e-3;
 fn default_tolerance() -> f64 {
     RESIDUAL_TOLERANCE
 }
+
 /// A residual below this is accepted when rounding stops further progress.
 const ROUNDING_FLOOR: f64 = 1e-10;
 const MAX_NEWTON: usize = 200;
