@@ -677,7 +677,7 @@ impl<'a> FitProblem<'a> {
         params: &HardFitParams,
     ) -> Result<Self, HardFitError> {
         // (with every wavelength masked somewhere the reduced problem has nothing exact to fit)
-        if !requested(params) && !set.unmasked_wavelength_indices().is_empty() {
+        if !requested(params) && !reduced.every_wavelength_masked {
             return Ok(Self::Reduced(reduced));
         }
         check_settings(

@@ -995,6 +995,7 @@ fn build_problem<'a>(
         ))),
         recent: Mutex::new(problem::SpeciationCache::default()),
         derivatives_with_cost: true,
+        every_wavelength_masked,
         medium,
     };
     Ok((problem, n_linear, nw))

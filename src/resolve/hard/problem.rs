@@ -54,6 +54,9 @@ pub(crate) struct VarproProblem<'a> {
     /// equations at every point whose cost it accepts, which then reuse that speciation (false
     /// where only costs are wanted, e.g. when ranking starts).
     pub derivatives_with_cost: bool,
+    /// Every wavelength has a masked point in some sample: `reduced` was built from the data
+    /// with those points zeroed, so it only ranks starts and the fit runs columnwise.
+    pub every_wavelength_masked: bool,
 }
 
 /// The speciation buffer of the last solve (the warm start of the next) and the log₁₀ β
@@ -431,6 +434,7 @@ impl<'a> VarproProblem<'a> {
             })),
             recent: Mutex::new(SpeciationCache::default()),
             derivatives_with_cost: false,
+            every_wavelength_masked: self.every_wavelength_masked,
         }
     }
 }
