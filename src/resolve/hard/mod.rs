@@ -36,7 +36,8 @@
 //! directions of D̃ above rounding level would not be safe and is not done. Masked points
 //! (e.g. saturated absorbances) cannot be left out one by one either: the fit leaves out every
 //! wavelength at which any sample is masked (`n_data` counts what was used), and the spectra
-//! there are estimated afterwards from the unmasked samples only.
+//! there are estimated afterwards from the unmasked samples only. When that would leave no
+//! wavelength (a sample masked throughout), the fit takes the columnwise path below.
 //!
 //! ## Known spectra
 //! Species with a known ε(λ) ([`FixedSpectrum`], [`HardFitParams::known_spectra`]) are held
@@ -50,7 +51,9 @@
 //! ([`columnwise`]): non-negative pure spectra ([`SpectraSign::NonNegative`], NNLS at each
 //! wavelength) and weights that grow with the absorbance ([`Weighting::Absorbance`]). There the
 //! linear part is solved wavelength by wavelength, masked points simply weigh nothing, and
-//! baselines are not available. Starting points are still ranked on the reduced problem.
+//! baselines are not available. Starting points are still ranked on the reduced problem. A data
+//! set with a masked point at every wavelength takes this path too (its reduced problem, built
+//! from D with the masked points set to zero, then serves only to rank the starts).
 //!
 //! ## Normal equations
 //! The solver ([`lm::minimise_normal_equations`]) receives the cost ½‖R‖² and, at accepted points,
