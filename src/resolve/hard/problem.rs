@@ -395,11 +395,11 @@ impl<'a> VarproProblem<'a> {
         total
     }
 
-    /// The same problem restricted to the samples `rows`, solved to [`SCORING_TOLERANCE`] (it
-    /// only ranks candidate parameters): the Gram matrix of a subset of
+    /// The same problem restricted to the samples `rows`: the Gram matrix of a subset of
     /// samples is the corresponding block of D̃D̃ᵀ, so the restriction is exact. Their rows of G
     /// (with H when spectra are known) are factored again, which leaves at most as many
-    /// columns as rows: every cost of the subset then works on a small square factor.
+    /// columns as rows: every cost of the subset then works on a small square factor. Its
+    /// speciation stops at [`SCORING_TOLERANCE`]: it only ranks candidate parameters.
     pub fn restricted(&self, rows: &[usize]) -> VarproProblem<'a> {
         let model = self.model;
         let selected = self.reduced.select(ndarray::Axis(0), rows);
