@@ -2201,6 +2201,10 @@ mod tests {
             // solved to the scoring tolerance: close enough to rank starts
             let exact = direct.cost(&theta).unwrap();
             approx::assert_relative_eq!(restricted.cost(&theta).unwrap(), exact, max_relative = 1e-4);
+            // asking for derivatives changes the batch's shape, not its tolerance
+            restricted.normal_equations(&theta).unwrap();
+            let tolerance = restricted.batch.lock().unwrap().batch.tolerance;
+            assert_eq!(tolerance.to_bits(), problem::SCORING_TOLERANCE.to_bits());
             // solved to rounding, the reduction itself is exact
             *restricted.recent.lock().unwrap() = problem::SpeciationCache::default();
             restricted.batch.lock().unwrap().batch.tolerance = crate::speciation::RESIDUAL_TOLERANCE;

@@ -210,11 +210,6 @@ impl<'a> VarproProblem<'a> {
             argmin::argmin_error!(PotentialBug, "speciation cache poisoned")
         })?;
         let predicted = warm_batch.extrapolate_to(&lb);
-        // ∂C/∂ log β only for the species whose constants θ moves (the others stay zero and
-        // their Δlog β is zero in the prediction too)
-        let wanted: Vec<bool> = (0..self.model.n_species())
-            .map(|k| self.free.iter().any(|f| f.species == k))
-            .collect();
         warm_batch.log_betas = None;
         let batch = &mut warm_batch.batch;
         let want = if derivatives {
@@ -223,11 +218,23 @@ impl<'a> VarproProblem<'a> {
             Derivatives::Skip
         };
         if batch.derivatives.is_some() != derivatives {
-            let warm = std::mem::replace(batch, SpeciationBatch::new(self.model, lb.nrows(), want));
-            batch.free.assign(&warm.free);
-            batch.ionic_strength.clone_from(&warm.ionic_strength);
+            // a batch of the other shape, keeping the warm start and the settings (tolerance,
+            // which derivatives)
+            let old = std::mem::replace(batch, SpeciationBatch::new(self.model, lb.nrows(), want));
+            batch.free.assign(&old.free);
+            batch.ionic_strength.clone_from(&old.ionic_strength);
+            batch.tolerance = old.tolerance;
+            batch.derivative_species = old.derivative_species;
         }
-        batch.derivative_species = Some(wanted);
+        // ∂C/∂ log β only for the species whose constants θ moves (the others stay zero and
+        // their Δlog β is zero in the prediction too); set once, the free parameters are fixed
+        if batch.derivative_species.is_none() {
+            batch.derivative_species = Some(
+                (0..self.model.n_species())
+                    .map(|k| self.free.iter().any(|f| f.species == k))
+                    .collect(),
+            );
+        }
         // Warm start from the previous θ (moved to first order when its derivatives are there);
         // if that fails, cold; if that fails too, clear the cache so a failed trial point cannot
         // poison later evaluations.
@@ -376,8 +383,7 @@ impl<'a> VarproProblem<'a> {
     pub fn residual_sum_of_squares(&self, p: &Projection, y: &Array2<f64>) -> f64 {
         let uty = p.u.t().dot(y);
         let (Some(w), Some(ys)) = (uty.as_slice(), y.as_slice()) else {
-            let r = self.residual_matrix(p, y);
-            return r.iter().map(|v| v * v).sum();
+            return sum_sq(self.residual_matrix(p, y).view());
         };
         let width = y.ncols();
         let mut row = vec![0.0; width];
